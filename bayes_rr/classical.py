@@ -1,0 +1,645 @@
+"""Classical statistics shown beside the posterior.
+
+Moment (plug-in) estimates of the per-part decomposition, agreement
+percentages, Fleiss' and Cohen's kappa with their standard errors, and
+intervals for the difference of two appraisers' call rates. Keys follow
+``estimands.md``; every interval states its level and method.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from bayes_rr import DEFAULT_PROB
+from bayes_rr.data import StudyData
+from bayes_rr.intervals import (
+    Interval,
+    agresti_caffo,
+    clopper_pearson,
+    newcombe_hybrid,
+    wilson,
+)
+
+PER_PART_KEYS = ("call_rate", "rr_variance", "repeatability_variance", "reproducibility_variance")
+
+
+def _finite_or_none(value: float) -> float | None:
+    return None if value is None or not np.isfinite(value) else float(value)
+
+
+# ---------------------------------------------------------------------------
+# moment estimates
+
+
+@dataclass(frozen=True)
+class MomentEstimates:
+    """Per-part and study-level moment estimates of one kind (plug-in or corrected)."""
+
+    kind: str
+    description: str
+    per_part: pd.DataFrame
+    study: dict
+    flags: tuple[str, ...] = ()
+
+    def as_dict(self) -> dict:
+        rows = [
+            {k: (v if isinstance(v, str) else _finite_or_none(v)) for k, v in row.items()}
+            for row in self.per_part.to_dict(orient="records")
+        ]
+        return {
+            "description": self.description,
+            "study": self.study,
+            "per_part": rows,
+            "flags": list(self.flags),
+        }
+
+
+def _study_summary(per_part: pd.DataFrame) -> tuple[dict, list[str]]:
+    """Averages over parts; the share is a ratio of averages (estimands.md)."""
+    flags: list[str] = []
+    usable = per_part.dropna(subset=["repeatability_variance"])
+    mean_t = float(usable["rr_variance"].mean()) if len(usable) else math.nan
+    mean_r = float(usable["repeatability_variance"].mean()) if len(usable) else math.nan
+    mean_v = float(usable["reproducibility_variance"].mean()) if len(usable) else math.nan
+    study: dict = {
+        "parts_used": len(usable),
+        "rr_variance": _finite_or_none(mean_t),
+        "repeatability_variance": _finite_or_none(mean_r),
+        "reproducibility_variance": _finite_or_none(mean_v),
+    }
+    for key, value in (("rr", mean_t), ("repeatability", mean_r), ("reproducibility", mean_v)):
+        if np.isfinite(value) and value < 0:
+            flags.append(f"study {key}_variance is negative ({value:.4g}); its sd is not defined")
+        study[f"{key}_sd"] = math.sqrt(value) if np.isfinite(value) and value >= 0 else None
+    study["reproducibility_share"] = mean_v / mean_t if np.isfinite(mean_t) and mean_t > 0 else None
+    study["repeatability_share"] = mean_r / mean_t if np.isfinite(mean_t) and mean_t > 0 else None
+    study["repeat_disagreement"] = 2 * mean_r if np.isfinite(mean_r) else None
+    return study, flags
+
+
+def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates]:
+    """Plug-in and within-cell corrected moment estimates.
+
+    Plug-in: p_ij replaced by s_ij / n_ij in the study-scope formulas, so
+    T_i = R_i + V_i holds exactly. Corrected: R_i uses n/(n-1) p(1-p) in cells
+    with n >= 2 (which removes the plug-in bias of the repeatability term) and
+    V_i = T_i - R_i; a negative V_i is kept as it is and flagged.
+    """
+    cells = study.cells
+    p = cells["s"] / cells["n"]
+    frame = pd.DataFrame(
+        {
+            "part": cells["part"],
+            "p": p,
+            "pq": p * (1 - p),
+            "pq_corrected": np.where(
+                cells["n"] >= 2, p * (1 - p) * cells["n"] / (cells["n"] - 1).clip(lower=1), np.nan
+            ),
+        }
+    )
+    grouped = frame.groupby("part", sort=False)
+    call_rate = grouped["p"].mean()
+    rr = call_rate * (1 - call_rate)
+    r_plug = grouped["pq"].mean()
+    r_corr = grouped["pq_corrected"].mean()  # NaN where no cell has two calls
+    order = list(study.parts)
+
+    def table(r: pd.Series) -> pd.DataFrame:
+        out = pd.DataFrame(
+            {
+                "part": order,
+                "call_rate": call_rate.reindex(order).to_numpy(),
+                "rr_variance": rr.reindex(order).to_numpy(),
+                "repeatability_variance": r.reindex(order).to_numpy(),
+            }
+        )
+        out["reproducibility_variance"] = out["rr_variance"] - out["repeatability_variance"]
+        t = out["rr_variance"].to_numpy()
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = np.where(t > 0, out["reproducibility_variance"] / t, np.nan)
+        out["reproducibility_share"] = share
+        out["repeat_disagreement"] = 2 * out["repeatability_variance"]
+        return out
+
+    plug = table(r_plug)
+    corr = table(r_corr)
+    plug_study, plug_flags = _study_summary(plug)
+    corr_study, corr_flags = _study_summary(corr)
+    negative = corr.loc[corr["reproducibility_variance"] < -1e-15, "part"].tolist()
+    if negative:
+        corr_flags.insert(
+            0,
+            f"corrected reproducibility variance is negative on {len(negative)} part(s) "
+            f"({', '.join(negative[:6])}{'...' if len(negative) > 6 else ''}); shown as is, "
+            "not clipped (sampling noise around a small true value)",
+        )
+    no_repeat = corr.loc[corr["repeatability_variance"].isna(), "part"].tolist()
+    if no_repeat:
+        corr_flags.append(
+            f"{len(no_repeat)} part(s) have no cell with two or more trials; the corrected "
+            "estimates leave them out"
+        )
+    return (
+        MomentEstimates(
+            "plug_in",
+            "moment estimates with p_ij replaced by s_ij/n_ij (biased low for repeatability)",
+            plug,
+            plug_study,
+            tuple(plug_flags),
+        ),
+        MomentEstimates(
+            "corrected",
+            "moment estimates with the within-cell correction n/(n-1) on p(1-p)",
+            corr,
+            corr_study,
+            tuple(corr_flags),
+        ),
+    )
+
+
+# ---------------------------------------------------------------------------
+# agreement
+
+
+@dataclass(frozen=True)
+class Agreement:
+    """Share of parts on which the calls of a kind agree."""
+
+    kind: str
+    appraiser: str | None
+    agreed: int
+    parts: int
+    intervals: tuple[Interval, ...]
+
+    def as_dict(self) -> dict:
+        return {
+            "kind": self.kind,
+            "appraiser": self.appraiser,
+            "agreed": self.agreed,
+            "parts": self.parts,
+            "share": self.agreed / self.parts,
+            "intervals": [i.as_dict() for i in self.intervals],
+        }
+
+
+def _agreement(kind: str, appraiser: str | None, agreed: np.ndarray, prob: float) -> Agreement:
+    x, n = int(agreed.sum()), int(agreed.size)
+    return Agreement(kind, appraiser, x, n, (clopper_pearson(x, n, prob), wilson(x, n, prob)))
+
+
+def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreement], list[dict]]:
+    """Agreement percentages with exact and Wilson intervals, and what could not be computed."""
+    calls = study.calls
+    out: list[Agreement] = []
+    skipped: list[dict] = []
+    for appraiser in study.appraisers:
+        cells = study.cells[(study.cells["appraiser"] == appraiser) & (study.cells["n"] >= 2)]
+        if cells.empty:
+            skipped.append(
+                {
+                    "statistic": f"within-appraiser agreement ({appraiser})",
+                    "reason": "needs a part called at least twice by the appraiser",
+                }
+            )
+            continue
+        agreed = ((cells["s"] == 0) | (cells["s"] == cells["n"])).to_numpy()
+        out.append(_agreement("within_appraiser", appraiser, agreed, prob))
+    per_part = study.cells.groupby("part", sort=False).agg(
+        n=("n", "sum"), s=("s", "sum"), appraisers=("appraiser", "size")
+    )
+    multi = per_part[per_part["appraisers"] >= 2]
+    if len(study.appraisers) < 2 or multi.empty:
+        skipped.append(
+            {
+                "statistic": "between-appraiser agreement",
+                "reason": "needs at least two appraisers calling the same part",
+            }
+        )
+    else:
+        agreed = ((multi["s"] == 0) | (multi["s"] == multi["n"])).to_numpy()
+        out.append(_agreement("between_appraisers", None, agreed, prob))
+    if study.reference is not None:
+        ref = calls["part"].map(study.reference).to_numpy()
+        matches = calls.assign(match=(calls["call"].to_numpy() == ref))
+        for appraiser in study.appraisers:
+            mine = matches[matches["appraiser"] == appraiser]
+            agreed = mine.groupby("part")["match"].all().to_numpy()
+            out.append(_agreement("appraiser_vs_reference", appraiser, agreed, prob))
+        agreed = matches.groupby("part")["match"].all().to_numpy()
+        out.append(_agreement("all_vs_reference", None, agreed, prob))
+    return out, skipped
+
+
+@dataclass(frozen=True)
+class ErrorRate:
+    """Share of calls that contradict the reference, over calls (not parts)."""
+
+    key: str
+    appraiser: str | None
+    errors: int
+    calls: int
+    intervals: tuple[Interval, ...]
+
+    def as_dict(self) -> dict:
+        return {
+            "key": self.key,
+            "appraiser": self.appraiser,
+            "errors": self.errors,
+            "calls": self.calls,
+            "rate": self.errors / self.calls,
+            "intervals": [i.as_dict() for i in self.intervals],
+            "note": "calls treated as independent; repeated calls on a part are not",
+        }
+
+
+def error_rates(study: StudyData, prob: float = DEFAULT_PROB) -> list[ErrorRate]:
+    """Classical false reject and false accept rates against the reference status."""
+    if study.reference is None:
+        return []
+    calls = study.calls.assign(ref=study.calls["part"].map(study.reference).to_numpy())
+    out = []
+    groups = [(a, calls[calls["appraiser"] == a]) for a in study.appraisers] + [(None, calls)]
+    for appraiser, frame in groups:
+        for key, ref_value in (("false_reject_rate", 0), ("false_accept_rate", 1)):
+            subset = frame[frame["ref"] == ref_value]
+            if subset.empty:
+                continue
+            wrong = int((subset["call"] != ref_value).sum())
+            n = len(subset)
+            out.append(
+                ErrorRate(
+                    key,
+                    appraiser,
+                    wrong,
+                    n,
+                    (clopper_pearson(wrong, n, prob), wilson(wrong, n, prob)),
+                )
+            )
+    return out
+
+
+# ---------------------------------------------------------------------------
+# kappa
+
+
+@dataclass(frozen=True)
+class FleissKappa:
+    """Fleiss' kappa with its standard errors.
+
+    ``se_fleiss_1971`` is the formula printed by Fleiss (1971);
+    ``se_null_fnl_1979`` the variance under no agreement beyond chance of
+    Fleiss, Nee & Landis (1979), used for ``z``.
+    """
+
+    kappa: float
+    se_fleiss_1971: float
+    se_null_fnl_1979: float
+    z: float
+    subjects: int
+    ratings_per_subject: float
+    observed_agreement: float
+    chance_agreement: float
+
+
+def fleiss_kappa(counts: np.ndarray) -> FleissKappa:
+    """Fleiss' kappa of a subjects x categories table of rating counts.
+
+    Subjects with fewer than two ratings carry no agreement information and
+    are dropped. Unequal numbers of ratings per subject are allowed in the
+    point estimate (per-subject agreement P_i averaged); the standard errors
+    assume equal numbers and use the mean number of ratings.
+    """
+    counts = np.asarray(counts, dtype=float)
+    n_i = counts.sum(axis=1)
+    counts = counts[n_i >= 2]
+    n_i = n_i[n_i >= 2]
+    if counts.shape[0] == 0:
+        raise ValueError("Fleiss' kappa needs at least one subject with two or more ratings")
+    subjects = counts.shape[0]
+    p_j = counts.sum(axis=0) / n_i.sum()
+    p_i = ((counts**2).sum(axis=1) - n_i) / (n_i * (n_i - 1))
+    p_bar = float(p_i.mean())
+    p_e = float((p_j**2).sum())
+    if p_e >= 1 - 1e-12:
+        raise ValueError("Fleiss' kappa is undefined when every rating is in one category")
+    kappa = (p_bar - p_e) / (1 - p_e)
+    n = float(n_i.mean())
+    q_j = 1 - p_j
+    var_1971 = (
+        2
+        / (subjects * n * (n - 1))
+        * (p_e - (2 * n - 3) * p_e**2 + 2 * (n - 2) * (p_j**3).sum())
+        / (1 - p_e) ** 2
+    )
+    pq = float((p_j * q_j).sum())
+    var_null = (
+        2 / (subjects * n * (n - 1)) * (pq**2 - float((p_j * q_j * (q_j - p_j)).sum())) / pq**2
+    )
+    se_null = math.sqrt(var_null)
+    return FleissKappa(
+        kappa=float(kappa),
+        se_fleiss_1971=math.sqrt(max(var_1971, 0.0)),
+        se_null_fnl_1979=se_null,
+        z=float(kappa / se_null),
+        subjects=subjects,
+        ratings_per_subject=n,
+        observed_agreement=p_bar,
+        chance_agreement=p_e,
+    )
+
+
+@dataclass(frozen=True)
+class CohenKappa:
+    """Cohen's kappa of a square agreement table with three standard errors.
+
+    ``se_cohen_1960``: sqrt(po(1-po)/(N(1-pe)^2)) of Cohen (1960);
+    ``se_fce_1969``: the large-sample SE of Fleiss, Cohen & Everitt (1969);
+    ``se_null``: the SE under no agreement beyond chance, used for ``z``.
+    """
+
+    kappa: float
+    se_cohen_1960: float
+    se_fce_1969: float
+    se_null: float
+    z: float
+    n: int
+    observed_agreement: float
+    chance_agreement: float
+
+
+def cohen_kappa(table: np.ndarray) -> CohenKappa:
+    """Cohen's (unweighted) kappa of a k x k table of counts (rows: rater 1)."""
+    table = np.asarray(table, dtype=float)
+    n = table.sum()
+    if table.ndim != 2 or table.shape[0] != table.shape[1] or n <= 0:
+        raise ValueError(f"Cohen's kappa needs a non-empty square table, got shape {table.shape}")
+    p = table / n
+    rows, cols = p.sum(axis=1), p.sum(axis=0)
+    po = float(np.trace(p))
+    pe = float((rows * cols).sum())
+    if pe >= 1 - 1e-12:
+        raise ValueError("Cohen's kappa is undefined when both raters use one category only")
+    kappa = (po - pe) / (1 - pe)
+    se_1960 = math.sqrt(po * (1 - po) / (n * (1 - pe) ** 2))
+    diag = np.diag(p)
+    term1 = float((diag * (1 - (rows + cols) * (1 - kappa)) ** 2).sum())
+    off = p.copy()
+    np.fill_diagonal(off, 0.0)
+    term2 = (1 - kappa) ** 2 * float((off * (cols[:, None] + rows[None, :]) ** 2).sum())
+    term3 = (kappa - pe * (1 - kappa)) ** 2
+    se_fce = math.sqrt(max(term1 + term2 - term3, 0.0) / (n * (1 - pe) ** 2))
+    var0 = (pe + pe**2 - float((rows * cols * (rows + cols)).sum())) / (n * (1 - pe) ** 2)
+    se0 = math.sqrt(var0)
+    return CohenKappa(float(kappa), se_1960, se_fce, se0, float(kappa / se0), int(n), po, pe)
+
+
+@dataclass(frozen=True)
+class KappaRow:
+    """One kappa statistic of the study, labelled."""
+
+    kind: str
+    statistic: str
+    appraiser: str | None
+    other: str | None
+    value: FleissKappa | CohenKappa
+    note: str = ""
+
+    def as_dict(self) -> dict:
+        return {
+            "kind": self.kind,
+            "statistic": self.statistic,
+            "appraiser": self.appraiser,
+            "other": self.other,
+            **asdict(self.value),
+            "note": self.note,
+        }
+
+
+def _binary_counts(s: np.ndarray, n: np.ndarray) -> np.ndarray:
+    return np.column_stack([n - s, s])
+
+
+def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
+    """Fleiss' kappa within appraisers, between appraisers and against the reference;
+    Cohen's kappa for each pair of appraisers (trial-matched calls on common parts)."""
+    rows: list[KappaRow] = []
+    skipped: list[dict] = []
+
+    def attempt(label: str, make) -> None:
+        try:
+            rows.append(make())
+        except ValueError as exc:
+            skipped.append({"statistic": label, "reason": str(exc)})
+
+    cells = study.cells
+    for appraiser in study.appraisers:
+        mine = cells[cells["appraiser"] == appraiser]
+        attempt(
+            f"Fleiss' kappa within appraiser ({appraiser})",
+            lambda mine=mine, appraiser=appraiser: KappaRow(
+                "within_appraiser",
+                "fleiss",
+                appraiser,
+                None,
+                fleiss_kappa(_binary_counts(mine["s"].to_numpy(), mine["n"].to_numpy())),
+                "subjects: parts; ratings: the appraiser's trials",
+            ),
+        )
+    if len(study.appraisers) >= 2:
+        per_part = cells.groupby("part", sort=False)[["n", "s"]].sum()
+        attempt(
+            "Fleiss' kappa between appraisers",
+            lambda: KappaRow(
+                "between_appraisers",
+                "fleiss",
+                None,
+                None,
+                fleiss_kappa(_binary_counts(per_part["s"].to_numpy(), per_part["n"].to_numpy())),
+                "subjects: parts; ratings: every call of every appraiser",
+            ),
+        )
+    else:
+        skipped.append(
+            {"statistic": "Fleiss' kappa between appraisers", "reason": "needs two appraisers"}
+        )
+    if study.reference is not None:
+        calls = study.calls.assign(ref=study.calls["part"].map(study.reference).to_numpy())
+        groups = [(a, calls[calls["appraiser"] == a]) for a in study.appraisers] + [(None, calls)]
+        for appraiser, frame in groups:
+            s = frame["call"].to_numpy() + frame["ref"].to_numpy()
+            attempt(
+                f"Fleiss' kappa against reference ({appraiser or 'all appraisers'})",
+                lambda s=s, appraiser=appraiser: KappaRow(
+                    "appraiser_vs_reference" if appraiser else "all_vs_reference",
+                    "fleiss",
+                    appraiser,
+                    "reference",
+                    fleiss_kappa(_binary_counts(s, np.full_like(s, 2))),
+                    "subjects: calls; ratings: the call and the reference status",
+                ),
+            )
+    wide = study.calls.pivot_table(
+        index=["part", "trial"], columns="appraiser", values="call", aggfunc="first"
+    )
+    for a, b in itertools.combinations(study.appraisers, 2):
+        pair = wide[[a, b]].dropna() if {a, b} <= set(wide.columns) else pd.DataFrame()
+        if pair.empty:
+            skipped.append(
+                {
+                    "statistic": f"Cohen's kappa {a} vs {b}",
+                    "reason": "the two appraisers share no (part, trial)",
+                }
+            )
+            continue
+        table = pd.crosstab(pair[a].astype(int), pair[b].astype(int)).reindex(
+            index=[0, 1], columns=[0, 1], fill_value=0
+        )
+        attempt(
+            f"Cohen's kappa {a} vs {b}",
+            lambda table=table, a=a, b=b: KappaRow(
+                "appraiser_pair",
+                "cohen",
+                a,
+                b,
+                cohen_kappa(table.to_numpy()),
+                "subjects: (part, trial) pairs both appraisers called",
+            ),
+        )
+    return rows, skipped
+
+
+# ---------------------------------------------------------------------------
+# appraiser differences
+
+
+@dataclass(frozen=True)
+class AppraiserDifference:
+    """Difference of two appraisers' call (reject) rates over the parts both called."""
+
+    appraiser: str
+    other: str
+    rejects: int
+    calls: int
+    other_rejects: int
+    other_calls: int
+    parts: int
+    intervals: tuple[Interval, ...] = field(default_factory=tuple)
+
+    def as_dict(self) -> dict:
+        return {
+            "appraiser": self.appraiser,
+            "other": self.other,
+            "call_rate": self.rejects / self.calls,
+            "other_call_rate": self.other_rejects / self.other_calls,
+            "difference": self.rejects / self.calls - self.other_rejects / self.other_calls,
+            "rejects": self.rejects,
+            "calls": self.calls,
+            "other_rejects": self.other_rejects,
+            "other_calls": self.other_calls,
+            "parts": self.parts,
+            "intervals": [i.as_dict() for i in self.intervals],
+            "note": "intervals treat the calls as independent binomial samples",
+        }
+
+
+def appraiser_differences(
+    study: StudyData, prob: float = DEFAULT_PROB
+) -> list[AppraiserDifference]:
+    """Newcombe hybrid score and Agresti-Caffo intervals for p_j - p_j'."""
+    out = []
+    cells = study.cells
+    for a, b in itertools.combinations(study.appraisers, 2):
+        ca = cells[cells["appraiser"] == a].set_index("part")
+        cb = cells[cells["appraiser"] == b].set_index("part")
+        common = ca.index.intersection(cb.index)
+        if common.empty:
+            continue
+        x1, n1 = int(ca.loc[common, "s"].sum()), int(ca.loc[common, "n"].sum())
+        x2, n2 = int(cb.loc[common, "s"].sum()), int(cb.loc[common, "n"].sum())
+        out.append(
+            AppraiserDifference(
+                a,
+                b,
+                x1,
+                n1,
+                x2,
+                n2,
+                len(common),
+                (newcombe_hybrid(x1, n1, x2, n2, prob), agresti_caffo(x1, n1, x2, n2, prob)),
+            )
+        )
+    return out
+
+
+# ---------------------------------------------------------------------------
+# everything together
+
+
+@dataclass(frozen=True)
+class ClassicalResults:
+    """All classical statistics of a study at one interval probability."""
+
+    prob: float
+    plug_in: MomentEstimates
+    corrected: MomentEstimates
+    agreement: tuple[Agreement, ...]
+    error_rates: tuple[ErrorRate, ...]
+    kappa: tuple[KappaRow, ...]
+    appraiser_differences: tuple[AppraiserDifference, ...]
+    not_computed: tuple[dict, ...]
+
+    def as_dict(self) -> dict:
+        return {
+            "prob": self.prob,
+            "classical": {
+                "plug_in": self.plug_in.as_dict(),
+                "corrected": self.corrected.as_dict(),
+            },
+            "agreement": [a.as_dict() for a in self.agreement],
+            "error_rates": [e.as_dict() for e in self.error_rates],
+            "kappa": [k.as_dict() for k in self.kappa],
+            "appraiser_differences": [d.as_dict() for d in self.appraiser_differences],
+            "not_computed": list(self.not_computed),
+        }
+
+
+def classical_statistics(study: StudyData, prob: float = DEFAULT_PROB) -> ClassicalResults:
+    """Compute every classical statistic that the design allows; list the rest with reasons."""
+    if not 0 < prob < 1:
+        raise ValueError(f"interval probability {prob!r} must be strictly between 0 and 1")
+    plug, corr = moment_estimates(study)
+    agree, skipped_agree = agreement(study, prob)
+    kap, skipped_kappa = kappas(study)
+    skipped = skipped_agree + skipped_kappa
+    if len(study.appraisers) < 2:
+        skipped.insert(
+            0,
+            {
+                "statistic": "reproducibility (appraiser) variance",
+                "reason": "needs two or more appraisers; with one it is 0 by construction",
+            },
+        )
+        skipped.append({"statistic": "appraiser differences", "reason": "needs two appraisers"})
+    if int(study.cells["n"].max()) < 2:
+        skipped.insert(
+            0,
+            {
+                "statistic": "corrected repeatability variance",
+                "reason": "needs a cell with two or more trials",
+            },
+        )
+    return ClassicalResults(
+        prob,
+        plug,
+        corr,
+        tuple(agree),
+        tuple(error_rates(study, prob)),
+        tuple(kap),
+        tuple(appraiser_differences(study, prob)),
+        tuple(skipped),
+    )

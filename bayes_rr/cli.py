@@ -1,0 +1,355 @@
+"""``bayes-rr``: a thin command-line shell over the library.
+
+Every command calls library functions that a notebook user can call too;
+this module only parses options, prints and chooses exit codes:
+0 success, 2 bad input (data, spec, options, output folder), 3 the sampler
+did not pass the convergence gate.
+"""
+
+from __future__ import annotations
+
+import functools
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from bayes_rr import DEFAULT_PROB, __version__
+from bayes_rr.data import ReadOptions
+from bayes_rr.errors import BayesRRError, DataError
+from bayes_rr.jsonio import dumps
+
+app = typer.Typer(
+    name="bayes-rr",
+    help=(
+        "Bayesian repeatability and reproducibility of pass/fail inspections. "
+        "Start with 'bayes-rr demo', then 'bayes-rr describe YOUR_STUDY.csv'."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+out = Console()
+err = Console(stderr=True)
+
+
+def _fail(exc: BayesRRError) -> None:
+    err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False, soft_wrap=True)
+    raise typer.Exit(exc.exit_code)
+
+
+def handles_errors(func):
+    """Turn the toolkit's typed errors into one line on stderr and an exit code."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except BayesRRError as exc:
+            _fail(exc)
+
+    return wrapper
+
+
+# ---------------------------------------------------------------------------
+# shared options
+
+Prob = Annotated[
+    float,
+    typer.Option(
+        "--prob",
+        min=0.5,
+        max=0.999,
+        help="Probability of every interval (e.g. 0.95 for 95% intervals).",
+    ),
+]
+DataArg = Annotated[
+    Path, typer.Argument(help="Study file: CSV (any common delimiter, UTF-8) or XLSX.")
+]
+Layout = Annotated[
+    str,
+    typer.Option(
+        help="Table layout: 'tidy' (one row per call), 'wide' (one row per part, "
+        "one column per appraiser and trial, e.g. A_1) or 'auto'."
+    ),
+]
+Col = functools.partial(typer.Option, show_default=False)
+
+
+def read_options(
+    layout: str,
+    part_col: str | None,
+    appraiser_col: str | None,
+    trial_col: str | None,
+    call_col: str | None,
+    reference_col: str | None,
+    reference_value_col: str | None,
+    reject_label: str | None,
+    accept_label: list[str] | None,
+    drop_missing: bool,
+    sheet: str | None,
+) -> ReadOptions:
+    columns = {
+        role: name
+        for role, name in (
+            ("part", part_col),
+            ("appraiser", appraiser_col),
+            ("trial", trial_col),
+            ("call", call_col),
+            ("reference", reference_col),
+            ("reference_value", reference_value_col),
+        )
+        if name
+    }
+    if layout not in ("auto", "tidy", "wide"):
+        raise DataError(f"--layout {layout!r} is not one of 'auto', 'tidy', 'wide'")
+    return ReadOptions(
+        layout=layout,  # type: ignore[arg-type]
+        columns=columns,
+        reject_label=reject_label,
+        accept_labels=tuple(accept_label or ()),
+        drop_missing=drop_missing,
+        sheet=sheet,
+    )
+
+
+def data_options(func):
+    """Add the options that say how to read a study file to a command."""
+    params = {
+        "layout": Layout,
+        "part_col": Annotated[str | None, Col("--part-col", help="Column holding the part.")],
+        "appraiser_col": Annotated[
+            str | None, Col("--appraiser-col", help="Column holding the appraiser.")
+        ],
+        "trial_col": Annotated[str | None, Col("--trial-col", help="Column holding the trial.")],
+        "call_col": Annotated[str | None, Col("--call-col", help="Column holding the call.")],
+        "reference_col": Annotated[
+            str | None, Col("--reference-col", help="Column holding the reference status.")
+        ],
+        "reference_value_col": Annotated[
+            str | None,
+            Col("--reference-value-col", help="Column holding a continuous reference value."),
+        ],
+        "reject_label": Annotated[
+            str | None,
+            Col(
+                "--reject-label",
+                help="The label that means reject, when labels are not one of 0/1, "
+                "accept/reject, pass/fail, go/no-go, good/bad, ok/ng, "
+                "conforming/nonconforming.",
+            ),
+        ],
+        "accept_label": Annotated[
+            list[str] | None,
+            Col("--accept-label", help="With --reject-label: a label meaning accept (repeat)."),
+        ],
+        "drop_missing": Annotated[
+            bool, typer.Option("--drop-missing", help="Drop empty calls instead of refusing.")
+        ],
+        "sheet": Annotated[str | None, Col("--sheet", help="Sheet of an XLSX workbook.")],
+    }
+    func.__annotations__.update(params)
+    return func
+
+
+def _num(value, digits: int = 3) -> str:
+    if value is None:
+        return "-"
+    return f"{value:.{digits}f}"
+
+
+# ---------------------------------------------------------------------------
+# commands
+
+
+def _version(value: bool) -> None:
+    if value:
+        out.print(f"bayes-rr {__version__}")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def main_callback(
+    version: Annotated[
+        bool,
+        typer.Option("--version", callback=_version, is_eager=True, help="Print the version."),
+    ] = False,
+) -> None:
+    """Bayesian repeatability and reproducibility of pass/fail inspections."""
+
+
+def print_description(result: dict) -> None:
+    """Terminal tables of the design and the classical statistics."""
+    design = result["design"]
+    prob = result["prob"]
+    table = Table(title=f"Study design: {design['source']}", show_header=False)
+    for label, key in (
+        ("parts", "parts"),
+        ("appraisers", "appraisers"),
+        ("calls", "calls"),
+        ("reject calls", "reject_calls"),
+        ("trials per cell (min-max)", None),
+        ("empty part x appraiser cells", "empty_cells"),
+        ("reference status given", "has_reference"),
+        ("data SHA-256", "data_sha256"),
+    ):
+        value = (
+            f"{design['trials_per_cell_min']}-{design['trials_per_cell_max']}"
+            if key is None
+            else design[key]
+        )
+        table.add_row(label, str(value))
+    out.print(table)
+    for note in design["notes"]:
+        out.print(f"note: {note}")
+
+    plug = result["classical"]["plug_in"]["study"]
+    corr = result["classical"]["corrected"]["study"]
+    table = Table(title="Moment estimates, averaged over the study's parts")
+    table.add_column("quantity")
+    table.add_column("plug-in", justify="right")
+    table.add_column("corrected n/(n-1)", justify="right")
+    for label, key in (
+        ("R&R variance T", "rr_variance"),
+        ("repeatability variance R", "repeatability_variance"),
+        ("reproducibility variance V", "reproducibility_variance"),
+        ("reproducibility share V/T", "reproducibility_share"),
+        ("P(two repeat calls disagree) 2R", "repeat_disagreement"),
+    ):
+        table.add_row(label, _num(plug[key], 4), _num(corr[key], 4))
+    out.print(table)
+    for flag in result["classical"]["corrected"]["flags"]:
+        out.print(f"flag: {flag}")
+
+    table = Table(title=f"Agreement over parts ({prob:.0%} intervals)")
+    for col in ("kind", "appraiser", "agreed/parts", "share", "exact (C-P)", "Wilson"):
+        table.add_column(col)
+    for row in result["agreement"]:
+        cp, wi = row["intervals"]
+        table.add_row(
+            row["kind"].replace("_", " "),
+            row["appraiser"] or "all",
+            f"{row['agreed']}/{row['parts']}",
+            f"{row['share']:.1%}",
+            f"{cp['lower']:.1%}-{cp['upper']:.1%}",
+            f"{wi['lower']:.1%}-{wi['upper']:.1%}",
+        )
+    out.print(table)
+
+    if result["error_rates"]:
+        table = Table(title=f"Calls against the reference ({prob:.0%} exact intervals)")
+        for col in ("rate", "appraiser", "errors/calls", "estimate", "interval"):
+            table.add_column(col)
+        for row in result["error_rates"]:
+            cp = row["intervals"][0]
+            table.add_row(
+                row["key"].replace("_", " "),
+                row["appraiser"] or "all",
+                f"{row['errors']}/{row['calls']}",
+                f"{row['rate']:.1%}",
+                f"{cp['lower']:.1%}-{cp['upper']:.1%}",
+            )
+        out.print(table)
+
+    table = Table(title="Kappa (z uses the standard error under no agreement beyond chance)")
+    for col in ("kind", "statistic", "who", "kappa", "SE", "z"):
+        table.add_column(col)
+    for row in result["kappa"]:
+        se = row.get("se_fleiss_1971", row.get("se_fce_1969"))
+        who = " vs ".join(x for x in (row["appraiser"], row["other"]) if x) or "all"
+        table.add_row(
+            row["kind"].replace("_", " "),
+            row["statistic"],
+            who,
+            _num(row["kappa"]),
+            _num(se),
+            _num(row["z"], 1),
+        )
+    out.print(table)
+
+    if result["appraiser_differences"]:
+        table = Table(title=f"Differences of call rates ({prob:.0%} intervals)")
+        for col in ("appraisers", "rates", "difference", "Newcombe", "Agresti-Caffo"):
+            table.add_column(col)
+        for row in result["appraiser_differences"]:
+            nw, ac = row["intervals"]
+            table.add_row(
+                f"{row['appraiser']} - {row['other']}",
+                f"{row['call_rate']:.3f} vs {row['other_call_rate']:.3f}",
+                f"{row['difference']:+.3f}",
+                f"{nw['lower']:+.3f} to {nw['upper']:+.3f}",
+                f"{ac['lower']:+.3f} to {ac['upper']:+.3f}",
+            )
+        out.print(table)
+    for item in result["not_computed"]:
+        out.print(f"not computed: {item['statistic']}: {item['reason']}")
+
+
+@app.command()
+@data_options
+@handles_errors
+def describe(
+    data: DataArg,
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON instead of tables.")] = False,
+    prob: Prob = DEFAULT_PROB,
+    layout="auto",
+    part_col=None,
+    appraiser_col=None,
+    trial_col=None,
+    call_col=None,
+    reference_col=None,
+    reference_value_col=None,
+    reject_label=None,
+    accept_label=None,
+    drop_missing=False,
+    sheet=None,
+) -> None:
+    """Validate a study file and show its design and classical statistics."""
+    from bayes_rr.describe import describe_file
+
+    options = read_options(
+        layout,
+        part_col,
+        appraiser_col,
+        trial_col,
+        call_col,
+        reference_col,
+        reference_value_col,
+        reject_label,
+        accept_label,
+        drop_missing,
+        sheet,
+    )
+    result = describe_file(data, options, prob)
+    if as_json:
+        sys.stdout.write(dumps(result) + "\n")
+    else:
+        print_description(result)
+
+
+@app.command()
+@handles_errors
+def demo(
+    out_dir: Annotated[
+        Path, typer.Option("--out", help="Folder to write the demo data and results into.")
+    ] = Path("bayes-rr-demo"),
+) -> None:
+    """Run the toolkit on the bundled, invented demo study."""
+    from bayes_rr.describe import demo_path, describe_file
+
+    out_dir.mkdir(parents=True, exist_ok=True)
+    target = out_dir / "demo_study.csv"
+    target.write_bytes(demo_path().read_bytes())
+    out.print(f"demo data (invented) written to {target}")
+    print_description(describe_file(target))
+
+
+def main() -> None:
+    app()
+
+
+if __name__ == "__main__":
+    main()

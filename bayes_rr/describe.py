@@ -1,0 +1,29 @@
+"""The ``describe`` step: design summary and classical statistics of a study."""
+
+from __future__ import annotations
+
+from importlib import resources
+from pathlib import Path
+
+from bayes_rr import DEFAULT_PROB
+from bayes_rr.classical import classical_statistics
+from bayes_rr.data import ReadOptions, StudyData, read_study
+
+DEMO_FILE = "demo_study.csv"
+
+
+def demo_path() -> Path:
+    """Path of the bundled (invented) demo study."""
+    return Path(str(resources.files("bayes_rr.demo").joinpath(DEMO_FILE)))
+
+
+def describe_study(study: StudyData, prob: float = DEFAULT_PROB) -> dict:
+    """Design and classical statistics as one JSON-ready dict."""
+    return {"design": study.design(), **classical_statistics(study, prob).as_dict()}
+
+
+def describe_file(
+    path: str | Path, options: ReadOptions | None = None, prob: float = DEFAULT_PROB
+) -> dict:
+    """Read, validate and describe a study file."""
+    return describe_study(read_study(path, options), prob)
