@@ -433,7 +433,8 @@ def _wide_mapping(
     if not mapping:
         raise DataError(
             f"{source}: no call columns found; columns found: {list(frame.columns)}. Expected a "
-            "tidy layout (part, appraiser, trial, call columns) or a wide one (part + A_1, A_2, ...)"
+            "tidy layout (part, appraiser, trial, call columns) or a wide one "
+            "(part + A_1, A_2, ...)"
         )
     return mapping
 
