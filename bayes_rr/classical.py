@@ -340,12 +340,12 @@ def fleiss_kappa(counts: np.ndarray) -> FleissKappa:
     var_null = (
         2 / (subjects * n * (n - 1)) * (pq**2 - float((p_j * q_j * (q_j - p_j)).sum())) / pq**2
     )
-    se_null = math.sqrt(var_null)
+    se_null = math.sqrt(max(var_null, 0.0))
     return FleissKappa(
         kappa=float(kappa),
         se_fleiss_1971=math.sqrt(max(var_1971, 0.0)),
         se_null_fnl_1979=se_null,
-        z=float(kappa / se_null),
+        z=float(kappa / se_null) if se_null > 0 else math.nan,
         subjects=subjects,
         ratings_per_subject=n,
         observed_agreement=p_bar,
@@ -394,8 +394,10 @@ def cohen_kappa(table: np.ndarray) -> CohenKappa:
     term3 = (kappa - pe * (1 - kappa)) ** 2
     se_fce = math.sqrt(max(term1 + term2 - term3, 0.0) / (n * (1 - pe) ** 2))
     var0 = (pe + pe**2 - float((rows * cols * (rows + cols)).sum())) / (n * (1 - pe) ** 2)
-    se0 = math.sqrt(var0)
-    return CohenKappa(float(kappa), se_1960, se_fce, se0, float(kappa / se0), int(n), po, pe)
+    se0 = math.sqrt(max(var0, 0.0))
+    # One rater using a single category gives a null SE of 0: z is then undefined.
+    z = float(kappa / se0) if se0 > 0 else math.nan
+    return CohenKappa(float(kappa), se_1960, se_fce, se0, z, int(n), po, pe)
 
 
 @dataclass(frozen=True)

@@ -336,6 +336,9 @@ def demo(
     out_dir: Annotated[
         Path, typer.Option("--out", help="Folder to write the demo data and results into.")
     ] = Path("bayes-rr-demo"),
+    describe_only: Annotated[
+        bool, typer.Option("--describe-only", help="Only describe the demo data; do not fit.")
+    ] = False,
 ) -> None:
     """Run the toolkit on the bundled, invented demo study."""
     from bayes_rr.describe import demo_path, describe_file

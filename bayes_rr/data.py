@@ -312,7 +312,9 @@ def _read_xlsx(path: Path, sheet: str | None) -> pd.DataFrame:
         names = book.sheet_names
         if sheet is not None and sheet not in names:
             raise DataError(f"{path}: no sheet {sheet!r}; the workbook has sheets {names}")
-        frame = book.parse(sheet if sheet is not None else names[0], dtype=object)
+        frame = pd.read_excel(
+            book, sheet_name=sheet if sheet is not None else names[0], dtype=object
+        )
     frame = frame.map(lambda v: "" if _is_missing(v) else str(v))
     frame.columns = [str(c) for c in frame.columns]
     return frame
@@ -452,7 +454,10 @@ def _to_long(
         )
     layout = options.layout
     if layout == "auto":
-        layout = "tidy" if found["call"] is not None and found["appraiser"] is not None else "wide"
+        # An appraiser or call column means one row per call; the message for a
+        # missing partner column is then about the tidy layout.
+        tidy_like = found["call"] is not None or found["appraiser"] is not None
+        layout = "tidy" if tidy_like else "wide"
     extra = {found["reference"], found["reference_value"]} - {None}
     # Data rows keep their position in the file even after blank rows were dropped.
     rows = frame.index.to_numpy() + line_offset

@@ -1,0 +1,139 @@
+"""The describe/demo commands and how bad input is refused (exit 2, one line, no traceback)."""
+
+import hashlib
+import json
+import subprocess
+import sys
+
+import pytest
+from helpers import write
+from typer.testing import CliRunner
+
+from bayes_rr import __version__
+from bayes_rr.cli import app
+
+runner = CliRunner()
+
+GOOD = "part,appraiser,trial,call\n1,A,1,pass\n1,A,2,fail\n1,B,1,pass\n1,B,2,pass\n"
+
+
+def run(*args):
+    return runner.invoke(app, [str(a) for a in args])
+
+
+def test_version():
+    result = run("--version")
+    assert result.exit_code == 0 and __version__ in result.output
+
+
+def test_describe_json_schema(demo_csv):
+    result = run("describe", demo_csv, "--json", "--prob", "0.9")
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    assert data["prob"] == 0.9
+    design = data["design"]
+    for key in ("parts", "appraisers", "trials_per_cell_min", "trials_per_cell_max", "calls",
+                "reject_share", "has_reference"):  # fmt: skip
+        assert key in design
+    for kind in ("plug_in", "corrected"):
+        study = data["classical"][kind]["study"]
+        for key in ("rr_variance", "repeatability_variance", "reproducibility_variance",
+                    "reproducibility_share"):  # fmt: skip
+            assert key in study
+    per_part = data["classical"]["plug_in"]["per_part"]
+    assert len(per_part) == design["parts"] and {"part", "rr_variance"} <= set(per_part[0])
+    assert data["agreement"] and data["kappa"] and data["appraiser_differences"]
+    for row in data["agreement"]:
+        assert {i["method"] for i in row["intervals"]} == {"Clopper-Pearson exact", "Wilson score"}
+        assert all(i["prob"] == 0.9 for i in row["intervals"])
+
+
+def test_describe_tables(demo_csv):
+    result = run("describe", demo_csv)
+    assert result.exit_code == 0
+    assert "Moment estimates" in result.output and "Kappa" in result.output
+
+
+def test_demo_writes_data(tmp_path):
+    result = run("demo", "--out", tmp_path / "d", "--describe-only")
+    assert result.exit_code == 0, result.output
+    assert "invented" in result.output.lower()
+    assert (tmp_path / "d" / "demo_study.csv").exists()
+
+
+def _bad_cases(tmp_path):
+    big = "part," + ",".join(f"A_{k}" for k in range(1, 1002)) + "\n"
+    big += "".join(f"P{i}," + ",".join(["0"] * 1001) + "\n" for i in range(1000))
+    binary = tmp_path / "bin.csv"
+    binary.write_bytes(b"\x00\x01\x02PK\x00")
+    return {
+        "missing file": (tmp_path / "nope.csv", "file not found"),
+        "empty file": (write(tmp_path, "empty.csv", ""), "empty"),
+        "binary file": (binary, "not a text file"),
+        "not a table": (write(tmp_path, "one.csv", "hello\nworld\n"), "not a table"),
+        "missing column": (
+            write(tmp_path, "nocall.csv", "part,appraiser,trial,verdict\n1,A,1,pass\n"),
+            "columns found",
+        ),
+        "unknown labels": (
+            write(tmp_path, "lab.csv", "part,appraiser,call\n1,A,maybe\n1,A,fail\n"),
+            "'maybe' (1)",
+        ),
+        "mixed labels": (
+            write(tmp_path, "mix.csv", "part,appraiser,call\n1,A,pass\n1,A,reject\n2,A,ok\n"),
+            "unknown or mixed",
+        ),
+        "empty calls": (write(tmp_path, "emp.csv", GOOD + "2,A,1,\n"), "line 6"),
+        "duplicate trial": (write(tmp_path, "dup.csv", GOOD + "1,A,1,fail\n"), "trial '1'"),
+        "two references": (
+            write(
+                tmp_path,
+                "ref.csv",
+                "part,appraiser,call,reference\n1,A,pass,pass\n1,B,pass,fail\n",
+            ),
+            "2 different references",
+        ),
+        "too many calls": (write(tmp_path, "big.csv", big), "1,001,000 calls"),
+    }
+
+
+@pytest.mark.parametrize(
+    "case",
+    ["missing file", "empty file", "binary file", "not a table", "missing column",
+     "unknown labels", "mixed labels", "empty calls", "duplicate trial", "two references",
+     "too many calls"],
+)  # fmt: skip
+def test_bad_input_is_refused_cleanly(tmp_path, case):
+    path, expected = _bad_cases(tmp_path)[case]
+    before = path.read_bytes() if path.exists() else None
+    result = run("describe", path)
+    assert result.exit_code == 2, result.output
+    message = result.stderr.strip()
+    assert "\n" not in message, message
+    assert message.startswith("error:") and expected in message, message
+    assert "Traceback" not in result.output
+    assert result.stdout == ""
+    if before is not None:
+        assert path.read_bytes() == before
+
+
+def test_drop_missing_option(tmp_path):
+    path = write(tmp_path, "emp.csv", GOOD + "2,A,1,\n")
+    result = run("describe", path, "--drop-missing", "--json")
+    assert result.exit_code == 0
+    assert "dropped 1" in json.loads(result.stdout)["design"]["notes"][0]
+
+
+def test_real_process_exit_code_and_stderr(tmp_path):
+    path = write(tmp_path, "lab.csv", "part,appraiser,call\n1,A,maybe\n1,A,fail\n")
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    proc = subprocess.run(
+        [sys.executable, "-m", "bayes_rr.cli", "describe", str(path)],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
+    assert proc.returncode == 2
+    assert proc.stderr.count("\n") == 1 and "Traceback" not in proc.stderr
+    assert "--reject-label" in proc.stderr
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == digest

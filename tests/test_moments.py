@@ -1,0 +1,80 @@
+"""Moment estimates: hand-computed values and the exact identity T = R + V."""
+
+import numpy as np
+import pytest
+
+from bayes_rr.classical import classical_statistics, moment_estimates
+from bayes_rr.data import study_from_cells
+from bayes_rr.simulate import simulate_crossed_logit
+
+
+@pytest.fixture
+def tiny():
+    # P1: A calls reject twice (p=1), B once of two (p=.5); P2: all accept.
+    return study_from_cells(["P1", "P2"], ["A", "B"], n=[[2, 2], [2, 2]], s=[[2, 1], [0, 0]])
+
+
+def test_hand_computed_plug_in(tiny):
+    plug, _ = moment_estimates(tiny)
+    p1 = plug.per_part.set_index("part").loc["P1"]
+    # pi = (1 + .5)/2 = .75; T = .75 * .25; R = mean(0, .25); V = mean(.25^2, .25^2)
+    assert p1["call_rate"] == pytest.approx(0.75)
+    assert p1["rr_variance"] == pytest.approx(0.1875)
+    assert p1["repeatability_variance"] == pytest.approx(0.125)
+    assert p1["reproducibility_variance"] == pytest.approx(0.0625)
+    assert p1["reproducibility_share"] == pytest.approx(1 / 3)
+    p2 = plug.per_part.set_index("part").loc["P2"]
+    assert p2["rr_variance"] == 0.0
+    assert np.isnan(p2["reproducibility_share"])  # T = 0: missing, never 0/0 silently
+    assert plug.study["rr_variance"] == pytest.approx(0.09375)
+    assert plug.study["repeatability_variance"] == pytest.approx(0.0625)
+    assert plug.study["reproducibility_variance"] == pytest.approx(0.03125)
+    # ratio of averages, not average of ratios
+    assert plug.study["reproducibility_share"] == pytest.approx(0.03125 / 0.09375)
+    assert plug.study["repeat_disagreement"] == pytest.approx(0.125)
+
+
+def test_hand_computed_corrected_keeps_negative_and_flags(tiny):
+    _, corr = moment_estimates(tiny)
+    p1 = corr.per_part.set_index("part").loc["P1"]
+    # R = mean(0, .25 * 2/1) = .25, V = T - R = .1875 - .25 < 0: kept and flagged
+    assert p1["repeatability_variance"] == pytest.approx(0.25)
+    assert p1["reproducibility_variance"] == pytest.approx(-0.0625)
+    assert corr.study["reproducibility_variance"] == pytest.approx(-0.03125)
+    assert corr.study["reproducibility_sd"] is None
+    assert any("negative" in f for f in corr.flags)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_total_is_repeatability_plus_reproducibility(seed):
+    study = simulate_crossed_logit(30, 4, 3, missing_share=0.2, seed=seed).study
+    for est in moment_estimates(study):
+        table = est.per_part.dropna(subset=["repeatability_variance"])
+        np.testing.assert_allclose(
+            table["rr_variance"],
+            table["repeatability_variance"] + table["reproducibility_variance"],
+            atol=1e-15,
+        )
+
+
+def test_corrected_repeatability_is_unbiased_in_expectation():
+    # E[p^(1-p^)] = p(1-p)(n-1)/n for a binomial proportion (common practice;
+    # textbook identity): averaging the corrected term over many cells
+    # recovers p(1-p).
+    rng = np.random.default_rng(1)
+    p, n, cells = 0.3, 3, 20000
+    s = rng.binomial(n, p, size=(cells, 1))
+    study = study_from_cells([f"P{i}" for i in range(cells)], ["A"], np.full((cells, 1), n), s)
+    plug, corr = moment_estimates(study)
+    assert corr.study["repeatability_variance"] == pytest.approx(p * (1 - p), abs=0.004)
+    assert plug.study["repeatability_variance"] == pytest.approx(p * (1 - p) * 2 / 3, abs=0.004)
+
+
+def test_one_appraiser_one_trial_computes_the_rest():
+    study = study_from_cells(["P1", "P2", "P3"], ["A"], n=[[1], [1], [1]], s=[[1], [0], [1]])
+    result = classical_statistics(study)
+    names = " ".join(item["statistic"] for item in result.not_computed)
+    assert "reproducibility" in names
+    assert "corrected repeatability" in names
+    assert "between appraisers" in names
+    assert result.plug_in.study["rr_variance"] is not None
