@@ -9,6 +9,7 @@ did not pass the convergence gate.
 from __future__ import annotations
 
 import functools
+import json
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -332,6 +333,215 @@ def describe(
 
 @app.command()
 @handles_errors
+def models() -> None:
+    """List the bundled model specifications."""
+    from bayes_rr.spec import bundled_models, load_spec
+
+    table = Table(title="Bundled models (use with --model NAME, or give a path to your own)")
+    table.add_column("name")
+    table.add_column("family")
+    table.add_column("description")
+    for name in bundled_models():
+        spec = load_spec(name)
+        table.add_row(name, spec.family, spec.description)
+    out.print(table)
+
+
+def _in_terminal(quiet: bool) -> bool:
+    import os
+
+    return not quiet and sys.stderr.isatty() and not os.environ.get("CI")
+
+
+def print_fit(summary: dict, classical: dict | None) -> None:
+    """Study-level table, plain readings and the classical estimates beside the posterior."""
+    diag = summary["diagnostics"]
+    if not diag["ok"]:
+        out.print("[bold red]NOT CONVERGED: the numbers below are not to be used.[/]")
+        for reason in diag["reasons"]:
+            out.print(f"  reason: {reason}")
+        for advice in diag["advice"]:
+            out.print(f"  advice: {advice}")
+    for warning in diag["warnings"]:
+        out.print(f"warning: {warning}")
+    prob = summary["prob"]
+    kind = "HDI" if summary["interval"] == "hdi" else "equal-tailed"
+    table = Table(
+        title=f"Study level, model {summary['model']['name']} "
+        f"(posterior mean and {prob:.0%} {kind} interval)"
+    )
+    table.add_column("quantity")
+    table.add_column("study's appraisers", justify="right")
+    table.add_column("new appraiser (population)", justify="right")
+    table.add_column("classical plug-in", justify="right")
+    table.add_column("classical corrected", justify="right")
+    rows = {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
+    plug = (classical or {}).get("classical", {}).get("plug_in", {}).get("study", {})
+    corr = (classical or {}).get("classical", {}).get("corrected", {}).get("study", {})
+
+    def cell(key: str, scope: str) -> str:
+        row = rows.get((key, scope))
+        if row is None or row["mean"] is None:
+            return "-"
+        return f"{row['mean']:.4f} ({row['lower']:.4f}-{row['upper']:.4f})"
+
+    for key in (
+        "rr_variance",
+        "repeatability_variance",
+        "reproducibility_variance",
+        "reproducibility_share",
+        "repeat_disagreement",
+        "cross_disagreement",
+        "appraiser_bias_variance",
+        "interaction_variance",
+    ):
+        if (key, "study") not in rows and (key, "population") not in rows:
+            continue
+        table.add_row(
+            key.replace("_", " "),
+            cell(key, "study"),
+            cell(key, "population"),
+            _num(plug.get(key), 4),
+            _num(corr.get(key), 4),
+        )
+    out.print(table)
+    for sentence in summary["readings"]:
+        out.print(sentence)
+    out.print(
+        f"r_hat max {diag['max_r_hat']:.3f}, ESS min bulk {diag['min_ess_bulk']:.0f} / "
+        f"tail {diag['min_ess_tail']:.0f}, divergences {diag['divergences']}, "
+        f"E-BFMI min {diag['min_bfmi']:.2f}"
+    )
+
+
+def run_fit(
+    data: Path,
+    options: ReadOptions,
+    model: str,
+    out_dir: Path,
+    *,
+    draws: int | None = None,
+    tune: int | None = None,
+    chains: int | None = None,
+    seed: int | None = None,
+    target_accept: float | None = None,
+    sampler: str | None = None,
+    prob: float = DEFAULT_PROB,
+    interval: str = "hdi",
+    quiet: bool = False,
+    overwrite: bool = False,
+) -> dict:
+    """Read, fit, write; return summary.json's content (library function behind 'fit')."""
+    from bayes_rr.data import read_study
+    from bayes_rr.fit import fit_study
+    from bayes_rr.outputs import check_output_dir, summary_document, write_fit
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.spec import load_spec
+
+    if interval not in ("hdi", "eti"):
+        raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
+    check_output_dir(out_dir, overwrite)
+    study = read_study(data, options)
+    spec = load_spec(model)
+    settings = SamplerSettings.from_spec(
+        spec,
+        draws=draws,
+        tune=tune,
+        chains=chains,
+        seed=seed,
+        target_accept=target_accept,
+        sampler=sampler,
+        progress=_in_terminal(quiet),
+    )
+    result = fit_study(study, spec, settings, prob=prob, interval=interval)
+    write_fit(result, out_dir, overwrite=overwrite)
+    return summary_document(result)
+
+
+@app.command()
+@data_options
+@handles_errors
+def fit(
+    data: DataArg,
+    out_dir: Annotated[Path, typer.Option("--out", help="Folder for the results (new or empty).")],
+    model: Annotated[
+        str, typer.Option(help="Bundled model name (see 'bayes-rr models') or a spec file.")
+    ] = "crossed-logit",
+    draws: Annotated[int | None, Col("--draws", min=10, help="Draws per chain.")] = None,
+    tune: Annotated[int | None, Col("--tune", min=10, help="Warm-up draws per chain.")] = None,
+    chains: Annotated[int | None, Col("--chains", min=1, help="Number of chains.")] = None,
+    seed: Annotated[
+        int | None, Col("--seed", help="Random seed (same seed, same numbers).")
+    ] = None,
+    target_accept: Annotated[
+        float | None, Col("--target-accept", min=0.5, max=0.999, help="NUTS target acceptance.")
+    ] = None,
+    sampler: Annotated[
+        str | None, Col("--sampler", help="'nutpie' (default, fast) or 'pymc'.")
+    ] = None,
+    prob: Prob = DEFAULT_PROB,
+    interval: Annotated[
+        str, typer.Option(help="'hdi' (highest density) or 'eti' (equal-tailed) intervals.")
+    ] = "hdi",
+    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
+    overwrite: Annotated[
+        bool, typer.Option("--overwrite", help="Replace a non-empty --out folder.")
+    ] = False,
+    layout="auto",
+    part_col=None,
+    appraiser_col=None,
+    trial_col=None,
+    call_col=None,
+    reference_col=None,
+    reference_value_col=None,
+    reject_label=None,
+    accept_label=None,
+    drop_missing=False,
+    sheet=None,
+) -> None:
+    """Fit a Bayesian model to a study and write the results to a folder.
+
+    Exits with code 3 (results written but marked not to be used) when the
+    sampler did not pass the convergence gate.
+    """
+    options = read_options(
+        layout,
+        part_col,
+        appraiser_col,
+        trial_col,
+        call_col,
+        reference_col,
+        reference_value_col,
+        reject_label,
+        accept_label,
+        drop_missing,
+        sheet,
+    )
+    summary = run_fit(
+        data,
+        options,
+        model,
+        out_dir,
+        draws=draws,
+        tune=tune,
+        chains=chains,
+        seed=seed,
+        target_accept=target_accept,
+        sampler=sampler,
+        prob=prob,
+        interval=interval,
+        quiet=quiet,
+        overwrite=overwrite,
+    )
+    classical = json.loads((out_dir / "classical.json").read_text())
+    print_fit(summary, classical)
+    out.print(f"results written to {out_dir}")
+    if not summary["diagnostics"]["ok"]:
+        raise typer.Exit(3)
+
+
+@app.command()
+@handles_errors
 def demo(
     out_dir: Annotated[
         Path, typer.Option("--out", help="Folder to write the demo data and results into.")
@@ -348,6 +558,16 @@ def demo(
     target.write_bytes(demo_path().read_bytes())
     out.print(f"demo data (invented) written to {target}")
     print_description(describe_file(target))
+    if describe_only:
+        return
+    fit_dir = out_dir / "fit"
+    out.print(f"fitting the default model (crossed-logit) into {fit_dir} ...")
+    summary = run_fit(target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True)
+    classical = json.loads((fit_dir / "classical.json").read_text())
+    print_fit(summary, classical)
+    out.print(f"results written to {fit_dir}")
+    if not summary["diagnostics"]["ok"]:
+        raise typer.Exit(3)
 
 
 def main() -> None:

@@ -1,0 +1,194 @@
+"""The fit step: spec + study -> model -> draws -> estimands -> gate -> summaries.
+
+:func:`fit_study` is what ``bayes-rr fit`` calls; it returns a
+:class:`FitResult` that :mod:`bayes_rr.outputs` writes to a folder.
+"""
+
+from __future__ import annotations
+
+import platform
+import sys
+import time
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from importlib import metadata
+
+import xarray as xr
+
+from bayes_rr import DEFAULT_PROB, __version__
+from bayes_rr.data import StudyData
+from bayes_rr.estimands import (
+    SummaryRow,
+    compute_estimands,
+    latent_draws,
+    log_likelihood_dataset,
+    summarize,
+)
+from bayes_rr.sampling import Diagnostics, SamplerSettings, convergence_gate, sample_model
+from bayes_rr.spec import ModelSpec
+
+HYPER_PARAMETERS = (
+    "intercept",
+    "sigma_part",
+    "sigma_appraiser",
+    "sigma_interaction",
+    "reference_effect",
+    "rho",
+)
+PACKAGES = ("pymc", "pytensor", "nutpie", "arviz", "numpy", "scipy", "pandas", "xarray")
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Everything a fit produced; nothing here is recomputed later."""
+
+    study: StudyData
+    spec: ModelSpec
+    settings: SamplerSettings
+    idata: object
+    estimands: xr.Dataset
+    diagnostics: Diagnostics
+    estimand_rows: tuple[SummaryRow, ...]
+    parameter_rows: tuple[SummaryRow, ...]
+    prob: float
+    interval: str
+    provenance: dict
+
+
+def package_versions() -> dict[str, str]:
+    versions = {"python": sys.version.split()[0], "bayes_rr": __version__}
+    for name in PACKAGES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = "not installed"
+    return versions
+
+
+def _observed_groups(study: StudyData) -> tuple[xr.Dataset, xr.Dataset]:
+    cells = study.cells
+    labels = [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)]
+    coords = {"cell": labels}
+    observed = xr.Dataset({"s": ("cell", cells["s"].to_numpy())}, coords=coords)
+    constant = {
+        "n": ("cell", cells["n"].to_numpy()),
+        "part_index": ("cell", cells["part_index"].to_numpy()),
+        "appraiser_index": ("cell", cells["appraiser_index"].to_numpy()),
+        "cell_part": ("cell", cells["part"].to_numpy().astype(str)),
+        "cell_appraiser": ("cell", cells["appraiser"].to_numpy().astype(str)),
+    }
+    constant_ds = xr.Dataset(constant, coords=coords)
+    if study.reference is not None:
+        constant_ds["reference"] = xr.DataArray(
+            study.reference.to_numpy(), dims="part", coords={"part": list(study.parts)}
+        )
+    return observed, constant_ds
+
+
+def fit_study(
+    study: StudyData,
+    spec: ModelSpec,
+    settings: SamplerSettings,
+    *,
+    prob: float = DEFAULT_PROB,
+    interval: str = "hdi",
+) -> FitResult:
+    """Sample the posterior of ``spec`` for ``study`` and compute every estimand."""
+    import arviz as az
+
+    from bayes_rr.families import build_model
+    from bayes_rr.families.common import parameterizations
+
+    started = datetime.now(UTC)
+    t0 = time.perf_counter()
+    model = build_model(spec, study)
+    timings = {"build_s": time.perf_counter() - t0}
+    run = sample_model(model, settings)
+    timings.update(run.timings)
+    idata = run.idata
+    # Keep the constrained parameters only: the sampler's unconstrained copies
+    # (``*_log__``) are an implementation detail.
+    posterior = idata.posterior[[v for v in idata.posterior.data_vars if not v.endswith("__")]]
+    t0 = time.perf_counter()
+    latent = latent_draws(posterior, spec, study, seed=settings.seed)
+    estimands = compute_estimands(posterior, spec, study, settings.seed, latent=latent)
+    observed, constant = _observed_groups(study)
+    idata = az.InferenceData(
+        posterior=posterior,
+        sample_stats=idata.sample_stats,
+        log_likelihood=log_likelihood_dataset(posterior, latent, study),
+        observed_data=observed,
+        constant_data=constant,
+    )
+    timings["estimands_s"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    hyper = posterior[[v for v in HYPER_PARAMETERS if v in posterior]]
+    estimand_rows = tuple(summarize(estimands, prob, interval))
+    parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
+    diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
+    timings["summaries_s"] = time.perf_counter() - t0
+    provenance = {
+        "started": started.isoformat(),
+        "finished": datetime.now(UTC).isoformat(),
+        "data_sha256": study.sha256,
+        "data_source": study.source,
+        "spec_name": spec.name,
+        "spec_source": spec.source,
+        "spec_sha256": spec.sha256,
+        "spec_text": spec.text,
+        "parameterizations": parameterizations(spec, study),
+        "seed": settings.seed,
+        "sampler_settings": settings.as_dict(),
+        "timings": timings,
+        "versions": package_versions(),
+        "platform": platform.platform(),
+    }
+    return FitResult(
+        study=study,
+        spec=spec,
+        settings=settings,
+        idata=idata,
+        estimands=estimands,
+        diagnostics=diagnostics,
+        estimand_rows=estimand_rows,
+        parameter_rows=parameter_rows,
+        prob=prob,
+        interval=interval,
+        provenance=provenance,
+    )
+
+
+def plain_readings(rows: list[dict], prob: float) -> list[str]:
+    """Sentences for people who do not think in variances of 0/1 calls."""
+    by_key = {(r["key"], r["scope"]): r for r in rows if r["level"] == "study"}
+
+    def fmt(key: str, scope: str, percent: bool = False) -> str | None:
+        row = by_key.get((key, scope))
+        if row is None or row["mean"] is None:
+            return None
+        if percent:
+            return f"{row['mean']:.0%} ({row['lower']:.0%} to {row['upper']:.0%})"
+        return f"{row['mean']:.3f} ({row['lower']:.3f} to {row['upper']:.3f})"
+
+    level = f"{prob:.0%} interval in brackets"
+    out = []
+    repeat = fmt("repeat_disagreement", "study")
+    if repeat:
+        out.append(
+            "Two repeat calls by the same appraiser on the same part disagree with "
+            f"probability {repeat}, averaged over the study's parts ({level})."
+        )
+    cross = fmt("cross_disagreement", "population")
+    if cross:
+        out.append(
+            "Two calls on the same part by two different appraisers, drawn from the same "
+            f"population of appraisers, disagree with probability {cross}."
+        )
+    share = fmt("reproducibility_share", "study", percent=True)
+    if share:
+        out.append(
+            f"Of the inconsistency of the calls, {share} is due to appraisers differing "
+            "from each other (reproducibility); the rest is each appraiser's own "
+            "inconsistency (repeatability)."
+        )
+    return out

@@ -1,0 +1,207 @@
+"""Sampling: the only module that runs a sampler, and the convergence gate.
+
+nutpie is the default sampler (it compiles the model with numba and adapts the
+mass matrix quickly); PyMC's NUTS is the fallback. The same seed, data and
+spec give the same draws.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import asdict, dataclass, field, replace
+
+import numpy as np
+import xarray as xr
+
+from bayes_rr.errors import SpecError
+from bayes_rr.family_table import SAMPLERS
+from bayes_rr.spec import ModelSpec
+
+R_HAT_MAX = 1.01
+ESS_MIN = 400
+BFMI_MIN = 0.3
+DIVERGENCE_SHARE_WARN = 0.001
+"""Up to this share of post-warm-up draws may diverge with a warning instead of a failure."""
+
+
+@dataclass(frozen=True)
+class SamplerSettings:
+    """Settings of one sampling run."""
+
+    sampler: str = "nutpie"
+    draws: int = 1000
+    tune: int = 1000
+    chains: int = 4
+    target_accept: float = 0.95
+    seed: int = 20240601
+    cores: int | None = None
+    progress: bool = False
+
+    def __post_init__(self) -> None:
+        if self.sampler not in SAMPLERS:
+            raise SpecError(f"sampler {self.sampler!r}: expected one of {list(SAMPLERS)}")
+        for key in ("draws", "tune", "chains"):
+            if getattr(self, key) < 1:
+                raise SpecError(f"{key} = {getattr(self, key)!r}: expected at least 1")
+        if not 0.5 <= self.target_accept < 1:
+            raise SpecError(
+                f"target_accept = {self.target_accept!r}: expected a number in [0.5, 1)"
+            )
+
+    @classmethod
+    def from_spec(cls, spec: ModelSpec, **overrides) -> SamplerSettings:
+        """Spec defaults, overridden by the given non-None values."""
+        base = cls(
+            sampler=spec.sampler.sampler,
+            draws=spec.sampler.draws,
+            tune=spec.sampler.tune,
+            chains=spec.sampler.chains,
+            target_accept=spec.sampler.target_accept,
+        )
+        return replace(base, **{k: v for k, v in overrides.items() if v is not None})
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class SampleRun:
+    """An InferenceData and how long each stage took (seconds)."""
+
+    idata: object
+    timings: dict = field(default_factory=dict)
+
+
+def sample_model(model, settings: SamplerSettings) -> SampleRun:
+    """Sample ``model`` (the cell log likelihood is added by the estimands step)."""
+    import pymc as pm
+
+    timings = {}
+    start = time.perf_counter()
+    if settings.sampler == "nutpie":
+        import nutpie
+
+        compiled = nutpie.compile_pymc_model(model)
+        timings["compile_s"] = time.perf_counter() - start
+        start = time.perf_counter()
+        idata = nutpie.sample(
+            compiled,
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=settings.cores or min(settings.chains, 2),
+            seed=settings.seed,
+            target_accept=settings.target_accept,
+            progress_bar=settings.progress,
+            save_warmup=False,
+        )
+    else:
+        idata = pm.sample(
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=settings.cores or min(settings.chains, 2),
+            random_seed=settings.seed,
+            target_accept=settings.target_accept,
+            progressbar=settings.progress,
+            compute_convergence_checks=False,
+            model=model,
+        )
+    timings["sample_s"] = time.perf_counter() - start
+    return SampleRun(idata, timings)
+
+
+# ---------------------------------------------------------------------------
+# convergence gate
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """Result of the convergence gate."""
+
+    ok: bool
+    divergences: int
+    draws: int
+    max_r_hat: float
+    min_ess_bulk: float
+    min_ess_tail: float
+    min_bfmi: float
+    reasons: tuple[str, ...]
+    warnings: tuple[str, ...]
+    advice: tuple[str, ...]
+    worst: dict
+
+    def as_dict(self) -> dict:
+        out = asdict(self)
+        for key in ("reasons", "warnings", "advice"):
+            out[key] = list(out[key])
+        out["thresholds"] = {
+            "r_hat_max": R_HAT_MAX,
+            "ess_min": ESS_MIN,
+            "bfmi_min": BFMI_MIN,
+            "divergence_share_with_warning": DIVERGENCE_SHARE_WARN,
+        }
+        return out
+
+
+def _extreme(rows, field: str, pick) -> tuple[float, str]:
+    values = [(getattr(r, field), r) for r in rows if math.isfinite(getattr(r, field))]
+    if not values:
+        return float("nan"), ""
+    value, row = pick(values, key=lambda item: item[0])
+    where = row.key if row.level == "parameter" else f"{row.scope} {row.level} {row.key}"
+    if row.part or row.appraiser:
+        where += f" ({row.part or row.appraiser})"
+    return float(value), where
+
+
+def convergence_gate(rows, sample_stats: xr.Dataset) -> Diagnostics:
+    """r_hat <= 1.01, bulk and tail ESS >= 400 on every summarised estimand and
+    hyper-parameter (``rows``: :class:`~bayes_rr.estimands.SummaryRow`), no divergences
+    beyond a small share (with a warning), E-BFMI >= 0.3 in every chain."""
+    max_rhat, rhat_at = _extreme(rows, "r_hat", max)
+    min_bulk, bulk_at = _extreme(rows, "ess_bulk", min)
+    min_tail, tail_at = _extreme(rows, "ess_tail", min)
+    diverging = sample_stats["diverging"].to_numpy().astype(bool)
+    divergences = int(diverging.sum())
+    n_draws = int(diverging.size)
+    energy = sample_stats["energy"].to_numpy()
+    bfmi = np.square(np.diff(energy, axis=1)).mean(axis=1) / np.var(energy, axis=1)
+    min_bfmi = float(bfmi.min())
+    reasons, warnings, advice = [], [], []
+    if not max_rhat <= R_HAT_MAX:
+        reasons.append(f"max r_hat {max_rhat:.3f} > {R_HAT_MAX} ({rhat_at})")
+    if not min_bulk >= ESS_MIN:
+        reasons.append(f"min bulk ESS {min_bulk:.0f} < {ESS_MIN} ({bulk_at})")
+    if not min_tail >= ESS_MIN:
+        reasons.append(f"min tail ESS {min_tail:.0f} < {ESS_MIN} ({tail_at})")
+    if divergences > DIVERGENCE_SHARE_WARN * n_draws:
+        reasons.append(f"{divergences} divergent transitions in {n_draws} draws")
+    elif divergences:
+        warnings.append(
+            f"{divergences} divergent transition(s) in {n_draws} draws (under "
+            f"{DIVERGENCE_SHARE_WARN:.1%}): results usable, but check the pair plots"
+        )
+    if not min_bfmi >= BFMI_MIN:
+        reasons.append(f"min E-BFMI {min_bfmi:.2f} < {BFMI_MIN}")
+    if reasons:
+        advice.append("run longer: more --tune and --draws (e.g. twice as many)")
+        if divergences:
+            advice.append("raise --target-accept (e.g. 0.95 or 0.99)")
+            advice.append("try another parameterization of the group terms in the model spec")
+        if min_bfmi < BFMI_MIN:
+            advice.append("use the noncentered parameterization for weakly informed terms")
+    return Diagnostics(
+        ok=not reasons,
+        divergences=divergences,
+        draws=n_draws,
+        max_r_hat=max_rhat,
+        min_ess_bulk=min_bulk,
+        min_ess_tail=min_tail,
+        min_bfmi=min_bfmi,
+        reasons=tuple(reasons),
+        warnings=tuple(warnings),
+        advice=tuple(advice),
+        worst={"r_hat": rhat_at, "ess_bulk": bulk_at, "ess_tail": tail_at},
+    )

@@ -1,0 +1,272 @@
+"""Model specifications: TOML files parsed into frozen dataclasses and validated.
+
+A spec is data, never code: it names a family from the family table, the
+terms with their priors and parameterizations, and sampler defaults. Unknown
+keys, unknown distributions and bad parameters raise :class:`SpecError`
+naming the file, the key and the value. This module never imports PyMC.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import tomllib
+from dataclasses import dataclass
+from importlib import resources
+from pathlib import Path
+
+from bayes_rr.errors import SpecError
+from bayes_rr.family_table import (
+    AUTO_MIN_CALLS,
+    CONCENTRATION_PRIOR,
+    FAMILIES,
+    INTERCEPT_PRIOR,
+    PARAMETERIZATIONS,
+    SAMPLERS,
+    SHARING,
+)
+from bayes_rr.priors import Prior, make_prior
+
+
+@dataclass(frozen=True)
+class TermSpec:
+    """One term of a model.
+
+    ``prior`` is the scale prior of a group term, or the coefficient prior of a
+    fixed term.
+    """
+
+    name: str
+    kind: str
+    prior: Prior
+    parameterization: str = "auto"
+    auto_min_calls: int = AUTO_MIN_CALLS
+
+
+@dataclass(frozen=True)
+class ConcentrationSpec:
+    """Beta-binomial concentration: a prior on rho = 1/(phi + 1), shared or per part."""
+
+    prior: Prior
+    sharing: str = "shared"
+
+
+@dataclass(frozen=True)
+class SamplerDefaults:
+    """Sampler settings a spec suggests; command-line options override them."""
+
+    sampler: str = "nutpie"
+    draws: int = 1000
+    tune: int = 1000
+    chains: int = 4
+    target_accept: float = 0.95
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """A validated model specification."""
+
+    name: str
+    description: str
+    family: str
+    intercept: Prior
+    terms: tuple[TermSpec, ...]
+    concentration: ConcentrationSpec | None
+    sampler: SamplerDefaults
+    source: str
+    text: str
+
+    @property
+    def sha256(self) -> str:
+        return hashlib.sha256(self.text.encode()).hexdigest()
+
+    def term(self, name: str) -> TermSpec | None:
+        return next((t for t in self.terms if t.name == name), None)
+
+    def has(self, name: str) -> bool:
+        return self.term(name) is not None
+
+
+TOP_KEYS = {"name", "description", "family", "intercept", "terms", "concentration", "sampler"}
+
+
+def _check_keys(table: dict, allowed: set[str], where: str, source: str) -> None:
+    unknown = sorted(set(table) - allowed)
+    if unknown:
+        raise SpecError(
+            f"{source}: unknown key(s) {unknown} in {where or 'the top level'}; "
+            f"expected some of {sorted(allowed)}"
+        )
+
+
+def _table(raw: dict, key: str, source: str, where: str) -> dict:
+    value = raw.get(key, {})
+    if not isinstance(value, dict):
+        raise SpecError(f"{source}: {where}{key} = {value!r}: expected a table")
+    return value
+
+
+def _prior(raw: object, where: str, source: str, support: str) -> Prior:
+    try:
+        prior = make_prior(raw, where)
+    except ValueError as exc:
+        raise SpecError(f"{source}: {exc}") from None
+    if prior.support != support:
+        raise SpecError(
+            f"{source}: {where}.distribution = {prior.distribution!r} has {prior.support} "
+            f"support, but {where} needs a distribution on {support} values"
+        )
+    return prior
+
+
+def _terms(raw: dict, family: str, source: str) -> tuple[TermSpec, ...]:
+    info = FAMILIES[family]
+    table = _table(raw, "terms", source, "")
+    _check_keys(table, set(info.terms), "[terms]", source)
+    terms = []
+    for name, body in table.items():
+        if not isinstance(body, dict):
+            raise SpecError(f"{source}: terms.{name} = {body!r}: expected a table")
+        term_info = info.terms[name]
+        where = f"terms.{name}"
+        if term_info.kind == "group":
+            _check_keys(body, {"scale_prior", "parameterization", "auto_min_calls"}, where, source)
+            prior = (
+                _prior(body["scale_prior"], f"{where}.scale_prior", source, "positive")
+                if "scale_prior" in body
+                else term_info.default_prior
+            )
+            param = body.get("parameterization", "auto")
+            if param not in PARAMETERIZATIONS:
+                raise SpecError(
+                    f"{source}: {where}.parameterization = {param!r}: expected one of "
+                    f"{list(PARAMETERIZATIONS)}"
+                )
+            min_calls = body.get("auto_min_calls", AUTO_MIN_CALLS)
+            if isinstance(min_calls, bool) or not isinstance(min_calls, int) or min_calls < 1:
+                raise SpecError(
+                    f"{source}: {where}.auto_min_calls = {min_calls!r}: expected a whole "
+                    "number of at least 1"
+                )
+            terms.append(TermSpec(name, "group", prior, param, min_calls))
+        else:
+            _check_keys(body, {"prior"}, where, source)
+            prior = (
+                _prior(body["prior"], f"{where}.prior", source, "real")
+                if "prior" in body
+                else term_info.default_prior
+            )
+            terms.append(TermSpec(name, "fixed", prior))
+    missing = [t for t in info.required_terms if t not in table]
+    if missing:
+        raise SpecError(f"{source}: family {family!r} needs the term(s) {missing} in [terms]")
+    return tuple(terms)
+
+
+def _sampler(raw: dict, source: str) -> SamplerDefaults:
+    table = _table(raw, "sampler", source, "")
+    _check_keys(table, {"sampler", "draws", "tune", "chains", "target_accept"}, "[sampler]", source)
+    defaults = SamplerDefaults()
+    sampler = table.get("sampler", defaults.sampler)
+    if sampler not in SAMPLERS:
+        raise SpecError(f"{source}: sampler.sampler = {sampler!r}: expected one of {SAMPLERS}")
+    values = {}
+    for key in ("draws", "tune", "chains"):
+        value = table.get(key, getattr(defaults, key))
+        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+            raise SpecError(f"{source}: sampler.{key} = {value!r}: expected a whole number >= 1")
+        values[key] = value
+    target = table.get("target_accept", defaults.target_accept)
+    if isinstance(target, bool) or not isinstance(target, int | float) or not 0.5 <= target < 1:
+        raise SpecError(
+            f"{source}: sampler.target_accept = {target!r}: expected a number in [0.5, 1)"
+        )
+    return SamplerDefaults(sampler, target_accept=float(target), **values)
+
+
+def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
+    """Parse and validate the TOML text of a model specification."""
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{source}: not valid TOML ({exc})") from None
+    _check_keys(raw, TOP_KEYS, "", source)
+    family = raw.get("family")
+    if family not in FAMILIES:
+        raise SpecError(f"{source}: family = {family!r}: expected one of {sorted(FAMILIES)}")
+    name = raw.get("name")
+    if not isinstance(name, str) or not name.strip():
+        raise SpecError(f"{source}: name = {name!r}: expected a non-empty string")
+    description = raw.get("description", "")
+    if not isinstance(description, str):
+        raise SpecError(f"{source}: description = {description!r}: expected a string")
+    intercept_table = _table(raw, "intercept", source, "")
+    _check_keys(intercept_table, {"prior"}, "[intercept]", source)
+    intercept = (
+        _prior(intercept_table["prior"], "intercept.prior", source, "real")
+        if "prior" in intercept_table
+        else INTERCEPT_PRIOR
+    )
+    concentration = None
+    if FAMILIES[family].has_concentration:
+        table = _table(raw, "concentration", source, "")
+        _check_keys(table, {"prior", "sharing"}, "[concentration]", source)
+        prior = (
+            _prior(table["prior"], "concentration.prior", source, "unit")
+            if "prior" in table
+            else CONCENTRATION_PRIOR
+        )
+        sharing = table.get("sharing", "shared")
+        if sharing not in SHARING:
+            raise SpecError(
+                f"{source}: concentration.sharing = {sharing!r}: expected one of {list(SHARING)}"
+            )
+        concentration = ConcentrationSpec(prior, sharing)
+    elif "concentration" in raw:
+        raise SpecError(
+            f"{source}: [concentration] is for the beta_binomial family, not {family!r}; remove it"
+        )
+    return ModelSpec(
+        name=name.strip(),
+        description=description.strip(),
+        family=family,
+        intercept=intercept,
+        terms=_terms(raw, family, source),
+        concentration=concentration,
+        sampler=_sampler(raw, source),
+        source=source,
+        text=text,
+    )
+
+
+def models_dir() -> Path:
+    """Folder of the bundled model specs (inside the installed package, or the repo's
+    top-level ``models/`` when running from a source checkout)."""
+    packaged = Path(str(resources.files("bayes_rr"))) / "models"
+    if packaged.is_dir():
+        return packaged
+    return Path(__file__).resolve().parent.parent / "models"
+
+
+def bundled_models() -> dict[str, Path]:
+    """Bundled spec name -> file."""
+    return {p.stem: p for p in sorted(models_dir().glob("*.toml"))}
+
+
+def load_spec(name_or_path: str | Path) -> ModelSpec:
+    """A bundled spec by name (``crossed-logit``) or the user's own spec file by path."""
+    bundled = bundled_models()
+    key = str(name_or_path)
+    if key in bundled:
+        path = bundled[key]
+    else:
+        path = Path(key)
+        if not path.is_file():
+            raise SpecError(
+                f"model {key!r} is neither a bundled model ({', '.join(bundled)}) nor a file; "
+                "see 'bayes-rr models'"
+            )
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SpecError(f"{path}: cannot read the spec ({exc})") from None
+    return parse_spec(text, source=path.name)

@@ -1,0 +1,204 @@
+"""Estimand maths on hand-set draws (no MCMC), against scipy and exact identities."""
+
+import numpy as np
+import pytest
+import xarray as xr
+from scipy import integrate, stats
+from scipy.special import expit
+
+from bayes_rr.data import study_from_cells
+from bayes_rr.estimands import (
+    GH_NODES_BY_SCALE,
+    add_shares,
+    compute_estimands,
+    decompose_population_beta,
+    decompose_population_logit,
+    decompose_study,
+    logistic_normal_moments,
+    split_reproducibility_logit,
+    study_level,
+    summarize,
+)
+from bayes_rr.spec import load_spec
+
+
+def _quad_moments(eta, s):
+    # Reference: scipy.integrate.quad of expit(eta + z) N(z; 0, s^2).
+    def moment(power):
+        return integrate.quad(
+            lambda z: expit(eta + z) ** power * stats.norm.pdf(z, 0, s),
+            -40 * s, 40 * s, points=[-eta], epsabs=1e-14, epsrel=1e-13, limit=500,
+        )[0]  # fmt: skip
+
+    return moment(1), moment(2)
+
+
+SCALES = [0.01, 0.3, 0.8, 1.4, 2.2, 3.0, 3.9, 4.8, 5.9, 7.5]
+
+
+@pytest.mark.parametrize("scale", SCALES)
+def test_quadrature_error_below_1e6_against_scipy_quad(scale):
+    etas = np.linspace(-8, 8, 17)
+    m1, m2 = logistic_normal_moments(etas[None, :], np.array([scale]))
+    for k, eta in enumerate(etas):
+        q1, q2 = _quad_moments(eta, scale)
+        assert abs(m1[0, k] - q1) < 1e-6
+        assert abs(m2[0, k] - q2) < 1e-6
+
+
+def test_node_table_is_increasing():
+    limits = [s for s, _ in GH_NODES_BY_SCALE]
+    nodes = [k for _, k in GH_NODES_BY_SCALE]
+    assert limits == sorted(limits) and nodes == sorted(nodes)
+
+
+def test_zero_scale_is_the_plain_logistic():
+    eta = np.array([[-2.0, 0.0, 3.0]])
+    m1, m2 = logistic_normal_moments(eta, np.array([0.0]))
+    np.testing.assert_allclose(m1, expit(eta), atol=1e-15)
+    np.testing.assert_allclose(m2, expit(eta) ** 2, atol=1e-15)
+
+
+def test_population_decomposition_identity_and_split():
+    rng = np.random.default_rng(3)
+    eta = rng.normal(0, 2.5, (200, 7))
+    sa, sc = np.abs(rng.normal(0, 1, 200)), np.abs(rng.normal(0, 0.5, 200))
+    pop = decompose_population_logit(eta, np.sqrt(sa**2 + sc**2))
+    np.testing.assert_allclose(
+        pop["rr_variance"], pop["repeatability_variance"] + pop["reproducibility_variance"],
+        atol=1e-12,
+    )  # fmt: skip
+    split = split_reproducibility_logit(eta, sa, sc)
+    np.testing.assert_allclose(
+        split["appraiser_bias_variance"] + split["interaction_variance"],
+        pop["reproducibility_variance"],
+        atol=1e-6,
+    )
+    assert (split["appraiser_bias_variance"] >= -1e-12).all()
+
+
+def test_split_against_monte_carlo():
+    # Law of total variance by brute force: b ~ N(0, 1.2^2), c ~ N(0, 0.7^2).
+    rng = np.random.default_rng(0)
+    eta = np.array([[0.4]])
+    b = rng.normal(0, 1.2, 4000)
+    c = rng.normal(0, 0.7, (4000, 2000))
+    p = expit(eta[0, 0] + b[:, None] + c)
+    bias_mc = p.mean(axis=1).var()
+    inter_mc = p.var(axis=1).mean()
+    split = split_reproducibility_logit(eta, np.array([1.2]), np.array([0.7]))
+    assert split["appraiser_bias_variance"][0, 0] == pytest.approx(bias_mc, rel=0.05)
+    assert split["interaction_variance"][0, 0] == pytest.approx(inter_mc, rel=0.02)
+
+
+def test_study_scope_identity_draw_by_draw():
+    p = np.random.default_rng(1).uniform(size=(500, 9, 4))
+    d = decompose_study(p)
+    np.testing.assert_allclose(
+        d["rr_variance"], d["repeatability_variance"] + d["reproducibility_variance"], atol=1e-15
+    )
+
+
+@pytest.mark.parametrize(("a", "b"), [(2.0, 1.0), (0.5, 0.5), (3.0, 7.0), (20.0, 2.0)])
+def test_beta_expectation_identity_against_quad(a, b):
+    # E[p(1-p)] = pi(1-pi) - Var(p) (check-values.md, common practice), for Beta(a, b):
+    # scipy.integrate.quad of p(1-p) Beta(p; a, b).
+    expected = integrate.quad(lambda x: x * (1 - x) * stats.beta.pdf(x, a, b), 0, 1)[0]
+    pi, phi = a / (a + b), a + b
+    d = decompose_population_beta(np.array([pi]), np.array([phi]))
+    assert d["repeatability_variance"][0] == pytest.approx(expected, abs=1e-10)
+    # V = pi(1-pi)/(phi+1) is the variance of Beta(a, b) (scipy.stats.beta.var)
+    assert d["reproducibility_variance"][0] == pytest.approx(stats.beta(a, b).var(), abs=1e-14)
+
+
+@pytest.mark.parametrize(("n", "a", "b"), [(5, 2.0, 1.0), (3, 0.7, 1.9), (8, 4.0, 4.0)])
+def test_beta_binomial_variance_matches_scipy_betabinom(n, a, b):
+    # scipy.stats.betabinom: Var = n pi(1-pi)[1 + (n-1) rho], rho = 1/(a+b+1); in our terms
+    # Var(s) = n T + n(n-1) V for a cell of n calls.
+    d = decompose_population_beta(np.array([a / (a + b)]), np.array([a + b]))
+    var = n * d["rr_variance"][0] + n * (n - 1) * d["reproducibility_variance"][0]
+    assert var == pytest.approx(stats.betabinom(n, a, b).var(), rel=1e-12)
+    assert d["reproducibility_variance"][0] / d["rr_variance"][0] == pytest.approx(1 / (a + b + 1))
+
+
+def test_scipy_betabinom_reference_identities():
+    # check-values.md: betabinom(5, 2, 1) pmf = (k+1)/21, mean 10/3, variance 20/9.
+    k = np.arange(6)
+    np.testing.assert_allclose(stats.betabinom(5, 2, 1).pmf(k), (k + 1) / 21)
+    assert stats.betabinom(5, 2, 1).var() == pytest.approx(20 / 9)
+
+
+def test_shares_missing_where_total_is_zero():
+    per_part = decompose_study(np.array([[[0.0, 0.0], [0.2, 0.6]]]))
+    shares = add_shares(per_part, "study")
+    assert np.isnan(shares["reproducibility_share"][0, 0])
+    assert shares["reproducibility_share"][0, 1] == pytest.approx(0.04 / 0.24)
+
+
+def test_study_share_is_ratio_of_averages():
+    per_part = {
+        "call_rate": np.array([[0.5, 0.1]]),
+        "rr_variance": np.array([[0.25, 0.09]]),
+        "repeatability_variance": np.array([[0.2, 0.01]]),
+        "reproducibility_variance": np.array([[0.05, 0.08]]),
+    }
+    out = study_level(per_part, "study")
+    assert out["reproducibility_share"][0] == pytest.approx(0.13 / 0.34)
+    assert out["rr_sd"][0] == pytest.approx(np.sqrt(0.17))
+
+
+def _fake_logit_posterior(study, draws=50, seed=0):
+    rng = np.random.default_rng(seed)
+    n_cells = len(study.cells)
+    shape = (2, draws)
+    return xr.Dataset(
+        {
+            "intercept": (("chain", "draw"), rng.normal(0, 1, shape)),
+            "sigma_part": (("chain", "draw"), np.abs(rng.normal(2, 0.2, shape))),
+            "part_effect": (("chain", "draw", "part"), rng.normal(0, 2, (*shape, 6))),
+            "sigma_appraiser": (("chain", "draw"), np.abs(rng.normal(0.6, 0.1, shape))),
+            "appraiser_effect": (("chain", "draw", "appraiser"), rng.normal(0, 0.6, (*shape, 3))),
+            "sigma_interaction": (("chain", "draw"), np.abs(rng.normal(0.3, 0.05, shape))),
+            "interaction_effect": (("chain", "draw", "cell"), rng.normal(0, 0.3, (*shape, n_cells))),
+        },
+        coords={"chain": [0, 1], "draw": np.arange(draws), "part": list(study.parts),
+                "appraiser": list(study.appraisers)},
+    )  # fmt: skip
+
+
+@pytest.fixture(scope="module")
+def small_study():
+    n = np.full((6, 3), 2)
+    n[0, 2] = 0  # one empty cell
+    s = np.minimum(n, np.arange(18).reshape(6, 3) % 3)
+    return study_from_cells([f"P{i}" for i in range(6)], ["A", "B", "C"], n, s)
+
+
+def test_compute_estimands_labels_and_identity(small_study):
+    post = _fake_logit_posterior(small_study)
+    est = compute_estimands(post, load_spec("crossed-logit"), small_study, seed=1)
+    for scope in ("study", "population"):
+        t = est[f"{scope}__part__rr_variance"]
+        r = est[f"{scope}__part__repeatability_variance"]
+        v = est[f"{scope}__part__reproducibility_variance"]
+        np.testing.assert_allclose(t, r + v, atol=1e-9)
+        assert t.dims == ("chain", "draw", "part")
+        assert est[f"{scope}__study__rr_variance"].dims == ("chain", "draw")
+    assert est["study__appraiser__call_rate"].dims == ("chain", "draw", "appraiser")
+    assert "population__study__appraiser_bias_variance" in est
+    assert "study__study__appraiser_bias_variance" not in est  # population scope only
+
+
+def test_summaries_have_every_documented_field(small_study):
+    post = _fake_logit_posterior(small_study)
+    est = compute_estimands(post, load_spec("crossed-logit"), small_study, seed=1)
+    rows = summarize(est[["study__study__rr_variance", "population__part__call_rate"]], 0.9)
+    assert len(rows) == 1 + 6
+    row = rows[0]
+    draws = est["study__study__rr_variance"].to_numpy().ravel()
+    assert row.mean == pytest.approx(draws.mean())
+    assert row.median == pytest.approx(np.median(draws))
+    assert row.lower <= row.median <= row.upper
+    eti = summarize(est[["study__study__rr_variance"]], 0.9, "eti")[0]
+    assert eti.lower == pytest.approx(np.quantile(draws, 0.05))
+    assert {r.part for r in rows[1:]} == set(small_study.parts)
