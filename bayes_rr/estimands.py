@@ -102,11 +102,16 @@ def decompose_study(p: np.ndarray) -> dict[str, np.ndarray]:
     }
 
 
+def gauss_hermite(nodes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Hermite rule for the standard normal: E[f(Z)] ~ sum_k w_k f(u_k)."""
+    x, w = np.polynomial.hermite.hermgauss(nodes)
+    return math.sqrt(2.0) * x, w / math.sqrt(math.pi)
+
+
 def _gh_rule(scale_max: float) -> tuple[np.ndarray, np.ndarray] | None:
     for limit, nodes in GH_NODES_BY_SCALE:
         if scale_max <= limit:
-            x, w = np.polynomial.hermite.hermgauss(nodes)
-            return math.sqrt(2.0) * x, w / math.sqrt(math.pi)
+            return gauss_hermite(nodes)
     return None
 
 

@@ -105,7 +105,7 @@ FAMILIES: dict[str, FamilyInfo] = {
 }
 
 PARAMETERIZATIONS = ("centered", "noncentered", "auto")
-AUTO_MIN_CALLS = 400
+AUTO_MIN_CALLS = 100
 AUTO_MIN_LEVELS = 5
 """With ``parameterization = "auto"`` a group term is centered when every level has at
 least ``AUTO_MIN_CALLS`` calls and there are at least ``AUTO_MIN_LEVELS`` levels;
@@ -113,7 +113,9 @@ otherwise noncentered. Centering pays when the data pin each effect down far mor
 tightly than the scale spreads them (sd of a level's effect ~ 1/sqrt(calls p(1-p)));
 with few levels the scale's posterior reaches down to 0, where a centered term
 forms a funnel (measured on the demo study: 3 appraisers with 135 calls each gave
-52-63 divergences centered, 1 noncentered)."""
+52-63 divergences centered, 1 noncentered). Measured the other way: 15 parts with
+240 calls each sampled noncentered gave r_hat 1.011 on the intercept and 13
+divergences; centered they pass."""
 
 SAMPLERS = ("nutpie", "pymc")
 SHARING = ("shared", "per_part")

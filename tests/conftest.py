@@ -16,3 +16,39 @@ REPO = Path(__file__).resolve().parent.parent
 @pytest.fixture(scope="session")
 def demo_csv() -> Path:
     return demo_path()
+
+
+@pytest.fixture(scope="session")
+def small_sim():
+    """A small unbalanced simulated study with a reference status."""
+    from bayes_rr.simulate import simulate_crossed_logit
+
+    return simulate_crossed_logit(
+        24, 3, 2, mu=-1.0, sigma_part=2.0, sigma_appraiser=0.6, sigma_interaction=0.3,
+        reference_effect=3.0, missing_share=0.1, seed=42,
+    )  # fmt: skip
+
+
+FAST = {"draws": 1000, "tune": 1000, "chains": 4, "seed": 3}
+
+
+@pytest.fixture(scope="session")
+def fits(small_sim):
+    """One small fit per bundled model, shared by the tests (fit once per session)."""
+    from bayes_rr.fit import fit_study
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.spec import load_spec
+
+    out = {}
+    for name in ("crossed-logit", "beta-binomial"):
+        spec = load_spec(name)
+        out[name] = fit_study(small_sim.study, spec, SamplerSettings.from_spec(spec, **FAST))
+    return out
+
+
+@pytest.fixture(scope="session")
+def fit_dirs(fits, tmp_path_factory):
+    from bayes_rr.outputs import write_fit
+
+    root = tmp_path_factory.mktemp("fits")
+    return {name: write_fit(result, root / name) for name, result in fits.items()}

@@ -1,0 +1,157 @@
+"""Sampling speed: our crossed-logit fit against a plain PyMC baseline, side by side.
+
+Not collected by pytest (no ``test_`` prefix). Run from the repository root:
+
+    python tests/benchmarks/bench_sampling.py            # table
+    python tests/benchmarks/bench_sampling.py --json     # JSON
+    python tests/benchmarks/bench_sampling.py --cases typical --repeats 3
+
+For each case, both runs sample the same simulated study in the same process:
+
+* ours: the bundled ``crossed-logit`` spec through ``bayes_rr`` (binomial cell
+  likelihood, parameterization chosen by the ``auto`` rule, nutpie);
+* baseline: the same crossed logit written plainly in PyMC (non-centered effects,
+  one Bernoulli node per call, ``pm.sample`` defaults).
+
+``wall_s`` is model build + compile + sampling; ``min_ess`` the smallest bulk or
+tail ESS over the study-level estimands and the hyper-parameters; ``ratio`` =
+ours ess_per_s / baseline ess_per_s. With ``--repeats`` > 1 the medians are shown.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import sys
+import time
+import warnings
+
+import numpy as np
+
+CASES = {"typical": (60, 3, 3), "large": (1000, 8, 3)}
+HYPER = ("intercept", "sigma_part", "sigma_appraiser", "sigma_interaction")
+
+
+def _simulate(n_parts, n_appraisers, n_trials):
+    from bayes_rr.simulate import simulate_crossed_logit
+
+    return simulate_crossed_logit(
+        n_parts, n_appraisers, n_trials, mu=-0.5, sigma_part=2.0, sigma_appraiser=0.5,
+        sigma_interaction=0.3, seed=2026,
+    ).study  # fmt: skip
+
+
+def _min_ess(posterior, study, spec) -> float:
+    import arviz as az
+
+    from bayes_rr.estimands import compute_estimands
+
+    est = compute_estimands(posterior, spec, study, seed=1)
+    study_level = est[[v for v in est.data_vars if "__study__" in v]]
+    hyper = posterior[[v for v in HYPER if v in posterior]]
+    values = []
+    for ds in (study_level, hyper):
+        for method in ("bulk", "tail"):
+            ess = az.ess(ds, method=method)
+            values += [float(ess[v]) for v in ess.data_vars]
+    return min(values)
+
+
+def run_ours(study, spec_text=None):
+    from bayes_rr.families import build_model
+    from bayes_rr.sampling import SamplerSettings, sample_model
+    from bayes_rr.spec import load_spec, parse_spec
+
+    spec = parse_spec(spec_text, "variant") if spec_text else load_spec("crossed-logit")
+    start = time.perf_counter()
+    model = build_model(spec, study)
+    run = sample_model(model, SamplerSettings.from_spec(spec, seed=1))
+    wall = time.perf_counter() - start
+    posterior = run.idata.posterior
+    return wall, _min_ess(posterior, study, spec), run.timings
+
+
+def run_baseline(study):
+    import pymc as pm
+
+    from bayes_rr.spec import load_spec
+
+    calls = study.calls
+    part_pos = {p: i for i, p in enumerate(study.parts)}
+    app_pos = {a: j for j, a in enumerate(study.appraisers)}
+    cells = study.cells
+    cell_pos = {(p, a): k for k, (p, a) in enumerate(zip(cells["part"], cells["appraiser"],
+                                                         strict=True))}  # fmt: skip
+    part = calls["part"].map(part_pos).to_numpy()
+    app = calls["appraiser"].map(app_pos).to_numpy()
+    cell = np.array([cell_pos[(p, a)] for p, a in zip(calls["part"], calls["appraiser"],
+                                                      strict=True)])  # fmt: skip
+    coords = {"part": list(study.parts), "appraiser": list(study.appraisers),
+              "cell": list(range(len(cells)))}  # fmt: skip
+    start = time.perf_counter()
+    with pm.Model(coords=coords):
+        mu = pm.Normal("intercept", 0, 1.5)
+        sp = pm.HalfNormal("sigma_part", 2.5)
+        sa = pm.HalfNormal("sigma_appraiser", 1.0)
+        sc = pm.HalfNormal("sigma_interaction", 0.5)
+        a = pm.Deterministic("part_effect", sp * pm.Normal("za", 0, 1, dims="part"), dims="part")
+        b = pm.Deterministic(
+            "appraiser_effect", sa * pm.Normal("zb", 0, 1, dims="appraiser"), dims="appraiser"
+        )
+        c = pm.Deterministic(
+            "interaction_effect", sc * pm.Normal("zc", 0, 1, dims="cell"), dims="cell"
+        )
+        pm.Bernoulli(
+            "y", logit_p=mu + a[part] + b[app] + c[cell], observed=calls["call"].to_numpy()
+        )
+        idata = pm.sample(progressbar=False, random_seed=1, compute_convergence_checks=False)
+    wall = time.perf_counter() - start
+    return wall, _min_ess(idata.posterior, study, load_spec("crossed-logit"))
+
+
+def _figures(wall, min_ess):
+    return {"wall_s": round(wall, 2), "min_ess": round(min_ess, 1),
+            "ess_per_s": round(min_ess / wall, 3)}  # fmt: skip
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--json", action="store_true", help="print JSON")
+    parser.add_argument("--cases", default="typical,large", help="comma-separated case names")
+    parser.add_argument("--repeats", type=int, default=1, help="runs per case (medians shown)")
+    parser.add_argument("--no-baseline", action="store_true", help="skip the baseline")
+    args = parser.parse_args(argv)
+    warnings.filterwarnings("ignore")
+    out = {"cases": []}
+    for name in args.cases.split(","):
+        study = _simulate(*CASES[name])
+        ours, base = [], []
+        for _ in range(args.repeats):
+            wall, ess, timings = run_ours(study)
+            ours.append(_figures(wall, ess) | {"timings": timings})
+            if not args.no_baseline:
+                base.append(_figures(*run_baseline(study)))
+
+        def median(runs):
+            if not runs:
+                return None
+            return {k: statistics.median(r[k] for r in runs) for k in ("wall_s", "min_ess",
+                                                                      "ess_per_s")}  # fmt: skip
+
+        case = {"name": name, "cells": len(study.cells), "calls": study.n_calls,
+                "ours": median(ours), "baseline": median(base), "repeats": args.repeats,
+                "ours_timings_last": ours[-1]["timings"]}  # fmt: skip
+        case["ratio"] = (
+            round(case["ours"]["ess_per_s"] / case["baseline"]["ess_per_s"], 2) if base else None
+        )
+        out["cases"].append(case)
+        if not args.json:
+            print(json.dumps(case), flush=True)
+    if args.json:
+        print(json.dumps(out, indent=2))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,162 @@
+"""Fits of the bundled models: estimands, outputs, gate, determinism, CLI."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pymc as pm
+import pytest
+from typer.testing import CliRunner
+
+from bayes_rr.cli import app
+from bayes_rr.estimands import PER_PART_KEYS, POPULATION_ONLY_KEYS, STUDY_KEYS
+from bayes_rr.families import build_model
+from bayes_rr.outputs import FILES, SUMMARY_COLUMNS
+
+runner = CliRunner()
+
+
+@pytest.mark.parametrize("name", ["crossed-logit", "beta-binomial"])
+def test_fit_passes_the_gate(fits, name):
+    diag = fits[name].diagnostics
+    assert diag.ok, diag.reasons
+    assert diag.max_r_hat <= 1.01 and diag.min_ess_bulk >= 400 and diag.min_ess_tail >= 400
+
+
+@pytest.mark.parametrize("name", ["crossed-logit", "beta-binomial"])
+def test_identity_draw_by_draw_in_both_scopes(fits, name):
+    est = fits[name].estimands
+    for scope in ("study", "population"):
+        t = est[f"{scope}__part__rr_variance"].to_numpy()
+        r = est[f"{scope}__part__repeatability_variance"].to_numpy()
+        v = est[f"{scope}__part__reproducibility_variance"].to_numpy()
+        np.testing.assert_allclose(t, r + v, atol=1e-9)
+
+
+@pytest.mark.parametrize("name", ["crossed-logit", "beta-binomial"])
+def test_every_estimand_of_the_contract_is_summarised(fits, name):
+    rows = fits[name].estimand_rows
+    have = {(r.key, r.scope, r.level) for r in rows}
+    for scope in ("study", "population"):
+        for key in PER_PART_KEYS:
+            assert (key, scope, "part") in have
+        for key in STUDY_KEYS:
+            assert (key, scope, "study") in have
+    assert ("cross_disagreement", "population", "study") in have
+    split = {("appraiser_bias_variance", "population", "study"),
+             ("interaction_variance", "population", "study")}  # fmt: skip
+    if name == "crossed-logit":
+        assert split <= have
+        assert ("call_rate", "study", "appraiser") in have
+    else:
+        assert not split & have  # the beta-binomial family has no appraiser identity
+    assert set(POPULATION_ONLY_KEYS) >= {k for k, s, _ in have if s == "population"} - set(
+        PER_PART_KEYS
+    ) - set(STUDY_KEYS)
+
+
+def test_numpy_log_likelihood_matches_pymc(fits, small_sim):
+    # Reference: pymc.compute_log_likelihood on the same posterior draws.
+    for name, result in fits.items():
+        model = build_model(result.spec, small_sim.study)
+        post = result.idata.posterior.isel(draw=slice(0, 50))
+        free = [v.name for v in model.free_RVs]
+        idata = pm.compute_log_likelihood(
+            __import__("arviz").InferenceData(posterior=post[free]),
+            model=model,
+            progressbar=False,
+        )
+        ours = result.idata.log_likelihood["s"].isel(draw=slice(0, 50)).to_numpy()
+        np.testing.assert_allclose(ours, idata.log_likelihood["s"].to_numpy(), rtol=1e-6,
+                                   atol=1e-8)  # fmt: skip
+
+
+def test_output_folder_files_and_schema(fit_dirs):
+    import arviz as az
+
+    for name, folder in fit_dirs.items():
+        assert sorted(p.name for p in folder.iterdir()) == sorted(FILES)
+        summary = json.loads((folder / "summary.json").read_text())
+        assert summary["model"]["name"] == name
+        assert summary["prob"] == 0.95 and summary["interval"] == "hdi"
+        for key in ("ok", "divergences", "max_r_hat", "min_ess_bulk", "min_ess_tail", "reasons"):
+            assert key in summary["diagnostics"]
+        for row in summary["estimands"]:
+            assert set(SUMMARY_COLUMNS) <= set(row)
+            assert row["scope"] in ("study", "population")
+            assert row["level"] in ("study", "part", "appraiser", "system")
+        csv = pd.read_csv(folder / "summary.csv")
+        assert len(csv) == len(summary["estimands"])
+        run = json.loads((folder / "run.json").read_text())
+        for key in ("data_sha256", "spec_text", "spec_sha256", "versions", "seed",
+                    "sampler_settings", "timings", "started", "finished"):  # fmt: skip
+            assert key in run
+        assert run["versions"]["pymc"].startswith("5.28")
+        idata = az.from_netcdf(folder / "posterior.nc")
+        for group in ("posterior", "sample_stats", "log_likelihood", "observed_data",
+                      "constant_data", "estimands"):  # fmt: skip
+            assert group in idata.groups()
+        assert idata.log_likelihood["s"].dims[-1] == "cell"
+
+
+def test_readings_are_plain_sentences(fit_dirs):
+    summary = json.loads((fit_dirs["crossed-logit"] / "summary.json").read_text())
+    text = " ".join(summary["readings"])
+    assert "Two repeat calls by the same appraiser" in text
+    assert "95% interval" in text
+
+
+def test_same_seed_same_numbers(fits, small_sim):
+    from bayes_rr.fit import fit_study
+
+    first = fits["beta-binomial"]
+    again = fit_study(small_sim.study, first.spec, first.settings)
+    a = [(r.key, r.scope, r.part, r.mean, r.lower) for r in first.estimand_rows]
+    b = [(r.key, r.scope, r.part, r.mean, r.lower) for r in again.estimand_rows]
+    assert a == b
+
+
+def test_atomic_write_leaves_nothing_on_failure(fits, tmp_path, monkeypatch):
+    from bayes_rr import outputs
+
+    def broken(*args, **kwargs):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(outputs.pd.DataFrame, "to_csv", broken)
+    with pytest.raises(OSError, match="disk full"):
+        outputs.write_fit(fits["beta-binomial"], tmp_path / "out")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_cli_fit_and_gate_failure_exit_3(tmp_path, small_sim):
+    data = tmp_path / "study.csv"
+    small_sim.study.calls.to_csv(data, index=False)
+    out = tmp_path / "starved"
+    result = runner.invoke(
+        app,
+        ["fit", str(data), "--model", "beta-binomial", "--out", str(out), "--draws", "20",
+         "--tune", "10", "--chains", "2", "--quiet"],
+    )  # fmt: skip
+    assert result.exit_code == 3, result.output
+    assert "NOT CONVERGED" in result.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["diagnostics"]["ok"] is False and summary["use_results"] is False
+    assert summary["diagnostics"]["reasons"] and summary["diagnostics"]["advice"]
+    assert summary["readings"] == []
+    # an existing non-empty folder is refused before any sampling
+    again = runner.invoke(app, ["fit", str(data), "--out", str(out), "--quiet"])
+    assert again.exit_code == 2 and "--overwrite" in again.stderr
+
+
+def test_cli_fit_success_prints_table_and_reading(tmp_path, small_sim):
+    data = tmp_path / "study.csv"
+    small_sim.study.calls.to_csv(data, index=False)
+    result = runner.invoke(
+        app,
+        ["fit", str(data), "--model", "beta-binomial", "--out", str(tmp_path / "ok"),
+         "--draws", "600", "--tune", "600", "--quiet", "--interval", "eti", "--prob", "0.9"],
+    )  # fmt: skip
+    assert result.exit_code == 0, result.output
+    assert "Two repeat calls" in result.output and "classical" in result.output
+    summary = json.loads((tmp_path / "ok" / "summary.json").read_text())
+    assert summary["interval"] == "eti" and summary["prob"] == 0.9

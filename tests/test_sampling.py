@@ -1,0 +1,97 @@
+"""Sampling against exact and grid posteriors (small chains, fixed seeds)."""
+
+import numpy as np
+import pymc as pm
+import pytest
+from scipy import stats
+from scipy.special import expit, logsumexp
+
+from bayes_rr.data import study_from_cells
+from bayes_rr.families import build_model
+from bayes_rr.sampling import SamplerSettings, sample_model
+from bayes_rr.spec import load_spec
+
+
+def _quantile_se(q, draws, density_at_quantile, ess):
+    # Monte Carlo SE of an empirical quantile: sqrt(q(1-q)/ESS) / f(x_q).
+    return np.sqrt(q * (1 - q) / ess) / density_at_quantile
+
+
+@pytest.mark.parametrize("sampler", ["nutpie", "pymc"])
+def test_conjugate_beta_binomial_matches_scipy_beta(sampler):
+    # One part, one appraiser, Beta(2, 3) prior, 7 rejects in 12 calls: the posterior
+    # is Beta(9, 8) (scipy.stats.beta).
+    with pm.Model() as model:
+        p = pm.Beta("p", 2.0, 3.0)
+        pm.Binomial("s", n=12, p=p, observed=7)
+    run = sample_model(
+        model, SamplerSettings(sampler=sampler, draws=2000, tune=500, chains=2, seed=11)
+    )
+    import arviz as az
+
+    draws = run.idata.posterior["p"].to_numpy().ravel()
+    ess = float(az.ess(run.idata.posterior["p"].to_numpy().reshape(2, -1)))
+    exact = stats.beta(9, 8)
+    for q in (0.05, 0.25, 0.5, 0.75, 0.95):
+        x_q = exact.ppf(q)
+        se = _quantile_se(q, draws, exact.pdf(x_q), ess)
+        assert abs(np.quantile(draws, q) - x_q) < 4 * se
+    assert abs(draws.mean() - exact.mean()) < 4 * exact.std() / np.sqrt(ess)
+
+
+def _grid_posterior(n, s):
+    """Grid posterior of (pi, rho) for one part under the bundled beta-binomial spec.
+
+    eta = intercept + sigma_part * z has the prior of a normal(0, 1.5) plus a
+    half_normal(2.5) * normal(0, 1): a scale mixture of normals, integrated over
+    sigma numerically. Likelihood: scipy.stats.betabinom per cell.
+    """
+    eta = np.linspace(-12, 12, 801)
+    rho = np.linspace(0.0005, 0.9995, 800)
+    sigma = np.linspace(1e-4, 12.5, 2000)
+    sigma_w = stats.halfnorm(0, 2.5).pdf(sigma)
+    sigma_w /= sigma_w.sum()
+    total_sd = np.sqrt(1.5**2 + sigma**2)
+    prior_eta = (stats.norm.pdf(eta[:, None], 0, total_sd[None, :]) * sigma_w).sum(axis=1)
+    pi = expit(eta)[:, None]
+    phi = 1 / rho[None, :] - 1
+    log_post = np.log(prior_eta)[:, None] + stats.beta(1, 3).logpdf(rho)[None, :]
+    for n_j, s_j in zip(n, s, strict=True):
+        log_post = log_post + stats.betabinom.logpmf(s_j, n_j, pi * phi, (1 - pi) * phi)
+    weights = np.exp(log_post - logsumexp(log_post))
+    pi_values = np.broadcast_to(pi, weights.shape)
+    rho_values = np.broadcast_to(rho[None, :], weights.shape)
+
+    def moments(values):
+        mean = (weights * values).sum()
+        return mean, np.sqrt((weights * (values - mean) ** 2).sum())
+
+    return moments(pi_values), moments(rho_values)
+
+
+def test_single_part_beta_binomial_matches_grid_posterior():
+    n, s = [6, 6, 6, 6], [0, 2, 5, 6]
+    study = study_from_cells(["P1"], ["A", "B", "C", "D"], np.array([n]), np.array([s]))
+    spec = load_spec("beta-binomial")
+    run = sample_model(
+        build_model(spec, study), SamplerSettings(draws=3000, tune=1000, chains=4, seed=5)
+    )
+    import arviz as az
+
+    post = run.idata.posterior
+    pi = expit(post["intercept"] + post["part_effect"].isel(part=0))
+    rho = post["rho"]
+    (pi_mean, pi_sd), (rho_mean, rho_sd) = _grid_posterior(n, s)
+    for draws, mean, sd in ((pi, pi_mean, pi_sd), (rho, rho_mean, rho_sd)):
+        ess = float(az.ess(draws.to_numpy()))
+        assert abs(float(draws.mean()) - mean) < 4 * sd / np.sqrt(ess)
+        assert float(draws.std()) == pytest.approx(sd, rel=0.1)
+
+
+def test_settings_validation():
+    from bayes_rr.errors import SpecError
+
+    with pytest.raises(SpecError, match="sampler 'gibbs'"):
+        SamplerSettings(sampler="gibbs")
+    with pytest.raises(SpecError, match="target_accept"):
+        SamplerSettings(target_accept=1.2)
