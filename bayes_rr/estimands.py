@@ -291,15 +291,45 @@ class LatentDraws:
     cell_log_lik: np.ndarray  # (S, cell): log P(s_ij | parameters), for LOO and checks
 
 
-def latent_logit(posterior: xr.Dataset, study: StudyData, rng: np.random.Generator) -> LatentDraws:
-    n_parts, n_app = len(study.parts), len(study.appraisers)
+def part_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray:
+    """(S, part) logit of the call rate of each part for a typical appraiser:
+    intercept + part effect (+ reference effect times the reference status)."""
     intercept = _draws(posterior, "intercept")
     s = intercept.shape[0]
-    eta_part = (
+    return (
         intercept[:, None]
-        + _optional(posterior, "part_effect", (s, n_parts))
+        + _optional(posterior, "part_effect", (s, len(study.parts)))
         + _reference_shift(posterior, study, s)
     )
+
+
+def cell_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray:
+    """(S, cell) logit p_ij of the observed cells under the crossed logit family."""
+    cells = study.cells
+    part = cells["part_index"].to_numpy()
+    app = cells["appraiser_index"].to_numpy()
+    eta = part_linear_predictor(posterior, study)[:, part]
+    if "appraiser_effect" in posterior:
+        eta = eta + _draws(posterior, "appraiser_effect")[:, app]
+    if "interaction_effect" in posterior:
+        eta = eta + _draws(posterior, "interaction_effect")
+    return eta
+
+
+def beta_binomial_parameters(
+    posterior: xr.Dataset, study: StudyData
+) -> tuple[np.ndarray, np.ndarray]:
+    """(S, part) pi_i and phi (per part, broadcast when shared) of the beta-binomial family."""
+    pi = expit(part_linear_predictor(posterior, study))
+    rho = _draws(posterior, "rho")
+    rho = rho[:, None] if rho.ndim == 1 else rho
+    return pi, np.broadcast_to(1.0 / rho - 1.0, pi.shape)
+
+
+def latent_logit(posterior: xr.Dataset, study: StudyData, rng: np.random.Generator) -> LatentDraws:
+    n_parts, n_app = len(study.parts), len(study.appraisers)
+    eta_part = part_linear_predictor(posterior, study)
+    s = eta_part.shape[0]
     b = _optional(posterior, "appraiser_effect", (s, n_app))
     sigma_b = _optional(posterior, "sigma_appraiser", (s,))
     sigma_c = _optional(posterior, "sigma_interaction", (s,))
@@ -331,17 +361,7 @@ def latent_beta_binomial(
     posterior: xr.Dataset, study: StudyData, rng: np.random.Generator
 ) -> LatentDraws:
     n_parts, n_app = len(study.parts), len(study.appraisers)
-    intercept = _draws(posterior, "intercept")
-    s = intercept.shape[0]
-    eta = (
-        intercept[:, None]
-        + _draws(posterior, "part_effect")
-        + _reference_shift(posterior, study, s)
-    )
-    pi = expit(eta)
-    rho = _draws(posterior, "rho")
-    rho = rho[:, None] if rho.ndim == 1 else rho
-    phi = np.broadcast_to(1.0 / rho - 1.0, pi.shape)
+    pi, phi = beta_binomial_parameters(posterior, study)
     n = np.zeros((n_parts, n_app))
     k = np.zeros((n_parts, n_app))
     cells = study.cells

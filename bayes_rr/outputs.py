@@ -10,15 +10,17 @@ complete. Files:
 * ``run.json``: provenance (data and spec hashes, spec text, versions, seed,
   sampler settings, timings);
 * ``classical.json``: the classical statistics of the same data;
-* ``cells.csv``: the cell table the model was fitted to.
+* ``calls.csv``: the validated calls (1 = reject) the model was fitted to, so the
+  later steps rebuild exactly the same study (its hash is checked on loading).
 """
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import tempfile
-from dataclasses import asdict
+from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import pandas as pd
@@ -44,7 +46,7 @@ SUMMARY_COLUMNS = (
     "ess_tail",
     "note",
 )
-FILES = ("posterior.nc", "summary.json", "summary.csv", "run.json", "classical.json", "cells.csv")
+FILES = ("posterior.nc", "summary.json", "summary.csv", "run.json", "classical.json", "calls.csv")
 
 
 def check_output_dir(out_dir: Path, overwrite: bool) -> None:
@@ -114,12 +116,20 @@ def write_fit(result, out_dir: Path, *, overwrite: bool = False) -> Path:
         (tmp / "run.json").write_text(dumps(result.provenance) + "\n", encoding="utf-8")
         classical = classical_statistics(result.study, result.prob).as_dict()
         (tmp / "classical.json").write_text(dumps(classical) + "\n", encoding="utf-8")
-        result.study.cells[["part", "appraiser", "n", "s"]].to_csv(tmp / "cells.csv", index=False)
+        calls_table(result.study).to_csv(tmp / "calls.csv", index=False)
         _move_into_place(tmp, out_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out_dir
+
+
+def calls_table(study) -> pd.DataFrame:
+    """The study's calls as a tidy table (labels 0/1, reference 0/1 where known)."""
+    table = study.calls.copy()
+    if study.reference is not None:
+        table["reference"] = table["part"].map(study.reference).astype(int)
+    return table
 
 
 def _move_into_place(tmp: Path, out_dir: Path) -> None:
@@ -132,13 +142,60 @@ def _move_into_place(tmp: Path, out_dir: Path) -> None:
         os.replace(tmp, out_dir)
 
 
-def load_summary(out_dir: Path) -> dict:
-    """summary.json of a fit folder."""
-    import json
+@dataclass(frozen=True)
+class LoadedFit:
+    """A fit folder read back: the study, the spec, the draws and the JSON documents."""
 
-    path = Path(out_dir) / "summary.json"
+    folder: Path
+    study: object
+    spec: object
+    idata: object
+    summary: dict
+    run: dict
+    classical: dict
+
+
+def _read_json(folder: Path, name: str) -> dict:
+    path = folder / name
     if not path.is_file():
         raise OutputError(
-            f"{out_dir}: no summary.json; is this a folder written by 'bayes-rr fit'?"
+            f"{folder}: no {name}; expected a folder written by 'bayes-rr fit' "
+            f"(files {list(FILES)})"
         )
-    return json.loads(path.read_text(encoding="utf-8"))
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except json.JSONDecodeError as exc:
+        raise OutputError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
+
+
+def load_fit(folder: str | Path, *, with_draws: bool = True) -> LoadedFit:
+    """Read a fit folder and check that its data are the data the fit recorded."""
+    from bayes_rr.data import study_from_frame
+    from bayes_rr.spec import parse_spec
+
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise OutputError(f"{folder}: not a folder; give the --out folder of 'bayes-rr fit'")
+    summary = _read_json(folder, "summary.json")
+    run = _read_json(folder, "run.json")
+    classical = _read_json(folder, "classical.json")
+    calls_path = folder / "calls.csv"
+    if not calls_path.is_file():
+        raise OutputError(f"{folder}: no calls.csv; the folder is incomplete")
+    frame = pd.read_csv(calls_path, dtype=str, keep_default_na=False)
+    study = study_from_frame(frame, source=run.get("data_source", "calls.csv"))
+    if study.sha256 != run.get("data_sha256"):
+        raise OutputError(
+            f"{folder}: calls.csv does not match the data hash recorded in run.json "
+            f"({study.sha256[:12]} vs {str(run.get('data_sha256'))[:12]}); the folder was changed"
+        )
+    spec = parse_spec(run["spec_text"], run.get("spec_source", "spec"))
+    idata = None
+    if with_draws:
+        import arviz as az
+
+        nc = folder / "posterior.nc"
+        if not nc.is_file():
+            raise OutputError(f"{folder}: no posterior.nc; the folder is incomplete")
+        idata = az.from_netcdf(str(nc), engine="h5netcdf")
+    return LoadedFit(folder, study, spec, idata, summary, run, classical)

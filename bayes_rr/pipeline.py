@@ -1,0 +1,152 @@
+"""The steps after a fit, as library functions: check, report, compare.
+
+Each reads a fit folder (``bayes_rr.outputs.load_fit``), calls the module that
+owns the step, and writes its machine-readable twin into the folder.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import numpy as np
+
+from bayes_rr.checks import (
+    DEFAULT_CHECK_DRAWS,
+    compare_fits,
+    posterior_predictive_check,
+    prior_predictive,
+)
+from bayes_rr.errors import OutputError
+from bayes_rr.fit import HYPER_PARAMETERS
+from bayes_rr.jsonio import dumps, write_text_atomic
+from bayes_rr.outputs import LoadedFit, load_fit
+
+CHECKS_FILE = "checks.json"
+REPORT_FILE = "report.html"
+
+
+def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int = 0) -> dict:
+    """Posterior and prior predictive checks of a fit; writes ``checks.json``."""
+    fit = load_fit(folder)
+    ppc = posterior_predictive_check(fit.idata.posterior, fit.spec, fit.study, draws=draws,
+                                     seed=seed)  # fmt: skip
+    # PyMC logs the variables it samples from the prior; that is noise here. (PyMC
+    # sets its logger's level when first imported, so import it before changing it.)
+    import pymc  # noqa: F401
+
+    logger = logging.getLogger("pymc")
+    level = logger.level
+    logger.setLevel(logging.WARNING)
+    try:
+        prior = prior_predictive(fit.spec, fit.study, draws=draws, seed=seed)
+    finally:
+        logger.setLevel(level)
+    document = {
+        "posterior_predictive": ppc.as_dict(),
+        "prior_predictive": prior,
+        "converged": fit.summary["diagnostics"]["ok"],
+    }
+    write_text_atomic(Path(folder) / CHECKS_FILE, dumps(document) + "\n")
+    return document
+
+
+def load_checks(folder: str | Path) -> dict | None:
+    import json
+
+    path = Path(folder) / CHECKS_FILE
+    return json.loads(path.read_text(encoding="utf-8")) if path.is_file() else None
+
+
+def _figures(fit: LoadedFit, checks: dict | None) -> dict:
+    from bayes_rr import plots
+
+    summary = fit.summary
+    prob = summary["prob"]
+    study = fit.study
+    cells = study.cells
+    n = np.zeros((len(study.parts), len(study.appraisers)), dtype=int)
+    s = np.zeros_like(n)
+    n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
+    s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
+    figures = {"call_grid": plots.call_grid(list(study.parts), list(study.appraisers), n, s)}
+    posterior = fit.idata.posterior
+    hyper = {v: posterior[v].to_numpy() for v in HYPER_PARAMETERS if v in posterior
+             and posterior[v].ndim == 2}  # fmt: skip
+    figures["rank_plots"] = plots.rank_plots(hyper)
+    if not summary["diagnostics"]["ok"]:
+        return figures
+    estimands = fit.idata["estimands"]
+    draws = {
+        key: estimands[f"study__study__{key}"].to_numpy().ravel()
+        for key, _ in plots.STUDY_PANELS
+        if f"study__study__{key}" in estimands
+    }
+    rows = {r["key"]: r for r in summary["estimands"]
+            if r["level"] == "study" and r["scope"] == "study"}  # fmt: skip
+    classical = {
+        "plug_in": fit.classical["classical"]["plug_in"]["study"],
+        "corrected": fit.classical["classical"]["corrected"]["study"],
+    }
+    figures["study_densities"] = plots.study_level_densities(draws, rows, classical, prob=prob)
+    figures["per_part"] = plots.per_part_intervals(summary["estimands"], prob=prob)
+    figures["appraisers"] = plots.appraiser_call_rates(summary["estimands"], prob=prob)
+    if checks is not None:
+        figures["checks"] = plots.predictive_checks(checks["posterior_predictive"]["statistics"])
+    return figures
+
+
+def report_fit(
+    folder: str | Path,
+    out: str | Path | None = None,
+    *,
+    title: str | None = None,
+    site: str | None = None,
+    notes: str | None = None,
+    run_checks: bool = True,
+) -> Path:
+    """Write the HTML report of a fit (running the checks first when they are missing)."""
+    from bayes_rr.report import ReportInputs, render_report
+
+    folder = Path(folder)
+    fit = load_fit(folder)
+    checks = load_checks(folder)
+    if checks is None and run_checks:
+        checks = check_fit(folder)
+    target = Path(out) if out else folder / REPORT_FILE
+    if target.exists() and target.is_dir():
+        raise OutputError(f"--out {target}: is a folder; give a file name such as report.html")
+    inputs = ReportInputs(
+        summary=fit.summary,
+        run=fit.run,
+        classical=fit.classical,
+        checks=checks,
+        figures=_figures(fit, checks),
+        title=title,
+        site=site,
+        notes=notes,
+        folder=str(folder),
+    )
+    html = render_report(inputs)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    write_text_atomic(target, html)
+    return target
+
+
+def compare_folders(folders: list[str | Path], out: str | Path | None = None) -> dict:
+    """LOO comparison of several fits of the same data; optionally written as JSON."""
+    fits = [load_fit(f) for f in folders]
+    names = []
+    for fit in fits:
+        name = fit.spec.name
+        while name in names:
+            name += "'"
+        names.append(name)
+    result = compare_fits(
+        {n: f.idata for n, f in zip(names, fits, strict=True)},
+        {n: f.run["data_sha256"] for n, f in zip(names, fits, strict=True)},
+    )
+    result["folders"] = {n: str(f.folder) for n, f in zip(names, fits, strict=True)}
+    if out:
+        write_text_atomic(Path(out), dumps(result) + "\n")
+    return result

@@ -1,0 +1,474 @@
+"""The validation report: one self-contained HTML file.
+
+This module assembles and formats; it computes no statistic. Every string that
+comes from the user or the data (titles, notes, part and appraiser names, file
+names) is HTML-escaped. Figures are embedded as base64 SVG images, so the file
+needs no remote resource and no script, and prints to PDF from a browser.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+from dataclasses import dataclass, field
+
+CAUTIONS = (
+    "Statistics support but do not replace the organisation's quality procedures, customer "
+    "and regulatory requirements, and qualified judgement.",
+    "For safety-critical parts, defer to local codes and licensed practice.",
+)
+
+STUDY_ROWS = (
+    ("rr_variance", "R&R variance T = pi(1 - pi)"),
+    ("repeatability_variance", "repeatability variance R"),
+    ("reproducibility_variance", "reproducibility variance V"),
+    ("rr_sd", "R&R standard deviation"),
+    ("repeatability_sd", "repeatability standard deviation"),
+    ("reproducibility_sd", "reproducibility standard deviation"),
+    ("reproducibility_share", "share of inconsistency due to appraisers (V/T)"),
+    ("repeat_disagreement", "P(two repeat calls by one appraiser disagree) = 2R"),
+    ("cross_disagreement", "P(two calls by two new appraisers disagree) = 2T"),
+    ("appraiser_bias_variance", "part of V from appraisers' consistent leaning"),
+    ("interaction_variance", "part of V from appraiser-by-part disagreement"),
+)
+
+STYLE = """
+body { font-family: Georgia, 'Times New Roman', serif; max-width: 60rem; margin: 2rem auto;
+       padding: 0 1rem; color: #111; line-height: 1.45; }
+h1 { font-size: 1.6rem; } h2 { font-size: 1.25rem; border-bottom: 1px solid #999;
+     margin-top: 2.2rem; }
+table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.9rem; }
+th, td { border: 1px solid #bbb; padding: 0.2rem 0.5rem; text-align: left;
+         vertical-align: top; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; }
+pre { background: #f4f4f4; padding: 0.6rem; overflow-x: auto; font-size: 0.8rem; }
+.banner { border: 3px solid #000; padding: 0.6rem; font-weight: bold; }
+.flag { font-weight: bold; }
+.note { font-size: 0.85rem; color: #333; }
+img.figure { max-width: 100%; height: auto; display: block; margin: 0.6rem 0; }
+@media print {
+  body { margin: 0; max-width: none; }
+  section { page-break-before: always; break-before: page; }
+  section.first { page-break-before: auto; break-before: auto; }
+  img.figure { page-break-inside: avoid; break-inside: avoid; }
+}
+"""
+
+
+@dataclass(frozen=True)
+class ReportInputs:
+    """Everything the report shows, already computed."""
+
+    summary: dict
+    run: dict
+    classical: dict
+    checks: dict | None
+    figures: dict = field(default_factory=dict)  # name -> matplotlib Figure (or None)
+    title: str | None = None
+    site: str | None = None
+    notes: str | None = None
+    folder: str = ""
+
+
+def esc(value: object) -> str:
+    """HTML-escape any value shown in the report (quotes included)."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def figure_tag(fig, alt: str) -> str:
+    """A matplotlib figure as an inline base64 SVG image."""
+    if fig is None:
+        return ""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="svg")
+    data = base64.b64encode(buffer.getvalue()).decode("ascii")
+    return f'<img class="figure" alt="{esc(alt)}" src="data:image/svg+xml;base64,{data}">'
+
+
+def _num(value, digits: int = 4) -> str:
+    return "-" if value is None else f"{value:.{digits}f}"
+
+
+def _table(header: list[str], rows: list[list[str]], numeric: set[int] | None = None) -> str:
+    numeric = numeric or set()
+    head = "".join(f"<th>{esc(h)}</th>" for h in header)
+    body = []
+    for row in rows:
+        cells = "".join(
+            f'<td class="num">{c}</td>' if i in numeric else f"<td>{c}</td>"
+            for i, c in enumerate(row)
+        )
+        body.append(f"<tr>{cells}</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def _study_rows(summary: dict) -> dict:
+    return {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
+
+
+def _interval(row: dict | None, digits: int = 4) -> str:
+    if row is None or row.get("mean") is None:
+        return "-"
+    return f"{row['mean']:.{digits}f} ({row['lower']:.{digits}f} to {row['upper']:.{digits}f})"
+
+
+# ---------------------------------------------------------------------------
+# sections
+
+
+def _findings(inputs: ReportInputs) -> str:
+    summary = inputs.summary
+    if not summary["diagnostics"]["ok"]:
+        return (
+            "<p>The sampler did not pass the convergence gate, so this report gives no "
+            "results. See the convergence section for the reasons and what to do.</p>"
+        )
+    sentences = list(summary["readings"])
+    checks = inputs.checks
+    if checks is not None:
+        flagged = checks["posterior_predictive"]["flagged"]
+        if flagged:
+            sentences.append(
+                f"The posterior predictive check flags {len(flagged)} feature(s) of the data "
+                f"that the model does not reproduce well ({esc(', '.join(flagged))}); read the "
+                "results with that in mind."
+            )
+        else:
+            sentences.append(
+                "The posterior predictive check finds no feature of the data that the model "
+                "fails to reproduce."
+            )
+    return "<p>" + " ".join(esc(s) for s in sentences) + "</p>"
+
+
+def _study_section(inputs: ReportInputs) -> str:
+    design = inputs.summary["design"]
+    rows = [
+        ["data file", esc(design["source"])],
+        ["parts", esc(design["parts"])],
+        ["appraisers", esc(", ".join(design["appraiser_names"]))],
+        ["calls", esc(design["calls"])],
+        ["reject calls", f"{design['reject_calls']} ({design['reject_share']:.1%})"],
+        ["trials per part and appraiser", f"{design['trials_per_cell_min']} to "
+                                          f"{design['trials_per_cell_max']}"],
+        ["empty part x appraiser cells", esc(design["empty_cells"])],
+        ["reference status known", "yes" if design["has_reference"] else "no"],
+        ["data SHA-256", f"<code>{esc(design['data_sha256'])}</code>"],
+    ]  # fmt: skip
+    for label, value in (("site", inputs.site), ("notes", inputs.notes)):
+        if value:
+            rows.append([label, esc(value)])
+    notes = "".join(f"<li>{esc(n)}</li>" for n in design.get("notes", []))
+    grid = figure_tag(inputs.figures.get("call_grid"), "observed share of reject calls per cell")
+    return (
+        _table(["item", "value"], rows)
+        + (f"<p>Reading the data:</p><ul>{notes}</ul>" if notes else "")
+        + grid
+    )
+
+
+def _model_section(inputs: ReportInputs) -> str:
+    summary, run = inputs.summary, inputs.run
+    model = summary["model"]
+    params = ", ".join(f"{esc(k)}: {esc(v)}" for k, v in model["parameterizations"].items())
+    parts = [
+        f"<p>Model <b>{esc(model['name'])}</b> ({esc(model['family'])}): "
+        f"{esc(model['description'])}. Parameterization of the group terms: {params}.</p>",
+    ]
+    if model["family"] == "beta_binomial":
+        parts.append(
+            "<p>This model treats the appraisers as exchangeable within each part: it "
+            "ignores appraiser identity across parts, so an appraiser who leans towards "
+            "reject on every part is not recognised as such. Per-appraiser results need "
+            "the crossed-logit model.</p>"
+        )
+    parts.append("<p>The model specification, exactly as fitted:</p>")
+    parts.append(f"<pre>{esc(run['spec_text'])}</pre>")
+    prior = (inputs.checks or {}).get("prior_predictive")
+    if prior:
+        posterior = _study_rows(summary)
+        rows = []
+        for row in prior:
+            post = posterior.get((row["key"], row["scope"]))
+            rows.append(
+                [
+                    esc(row["key"].replace("_", " ")),
+                    esc(row["scope"]),
+                    f"{row['median']:.3f}",
+                    f"{row['q025']:.3f} to {row['q975']:.3f}",
+                    _interval(post, 3) if summary["diagnostics"]["ok"] else "-",
+                ]
+            )
+        parts.append(
+            "<p>Prior predictive check: what the priors alone imply for this design, before "
+            "the calls are seen, next to the posterior. Where the prior range is much wider "
+            "than the posterior interval, the data and not the priors decide the answer.</p>"
+        )
+        parts.append(
+            _table(
+                ["quantity", "scope", "prior median", "prior 95% range", "posterior"],
+                rows,
+                {2, 3, 4},
+            )
+        )
+    return "".join(parts)
+
+
+def _convergence_section(inputs: ReportInputs) -> str:
+    diag = inputs.summary["diagnostics"]
+    thresholds = diag["thresholds"]
+    rows = [
+        ["max r_hat", _num(diag["max_r_hat"], 3), f"<= {thresholds['r_hat_max']}"],
+        ["min bulk ESS", _num(diag["min_ess_bulk"], 0), f">= {thresholds['ess_min']}"],
+        ["min tail ESS", _num(diag["min_ess_tail"], 0), f">= {thresholds['ess_min']}"],
+        ["divergent transitions", f"{diag['divergences']} of {diag['draws']}",
+         f"0 (up to {thresholds['divergence_share_with_warning']:.1%} with a warning)"],
+        ["min E-BFMI", _num(diag["min_bfmi"], 2), f">= {thresholds['bfmi_min']}"],
+    ]  # fmt: skip
+    verdict = (
+        "<p>The sampler passed the convergence gate.</p>"
+        if diag["ok"]
+        else "<p class='flag'>The sampler did not pass the convergence gate.</p>"
+    )
+    items = "".join(f"<li>reason: {esc(r)}</li>" for r in diag["reasons"])
+    items += "".join(f"<li>warning: {esc(w)}</li>" for w in diag["warnings"])
+    items += "".join(f"<li>advice: {esc(a)}</li>" for a in diag["advice"])
+    ranks = figure_tag(inputs.figures.get("rank_plots"), "rank plots of the hyper-parameters")
+    return (
+        verdict
+        + _table(["diagnostic", "value", "required"], rows, {1})
+        + (f"<ul>{items}</ul>" if items else "")
+        + ranks
+    )
+
+
+def _difference_sentence(summary: dict, classical: dict) -> str:
+    post = _study_rows(summary).get(("repeatability_variance", "study"))
+    plug = classical["classical"]["plug_in"]["study"].get("repeatability_variance")
+    corr = classical["classical"]["corrected"]["study"].get("repeatability_variance")
+    if post is None or plug is None or corr is None:
+        return ""
+    text = (
+        f"The plug-in moment estimate of the repeatability variance ({plug:.4f}) is biased "
+        "low: with n trials, p(1 - p) of an observed proportion underestimates it by the "
+        f"factor (n - 1)/n; the corrected estimate ({corr:.4f}) removes that bias but can "
+        "make the reproducibility variance negative. "
+    )
+    if post["lower"] <= corr <= post["upper"]:
+        text += (
+            f"The posterior ({post['mean']:.4f}) agrees with the corrected estimate within "
+            "its interval."
+        )
+    else:
+        text += (
+            f"The posterior ({post['mean']:.4f}) differs from the corrected estimate: it pools "
+            "information across parts and does not take a part on which every call agreed as "
+            "having a call probability of exactly 0 or 1, which moves repeatability away from "
+            "the moment estimates on small studies."
+        )
+    return f"<p>{esc(text)}</p>"
+
+
+def _results_section(inputs: ReportInputs) -> str:
+    summary, classical = inputs.summary, inputs.classical
+    prob = summary["prob"]
+    kind = summary["interval_description"]
+    rows = _study_rows(summary)
+    plug = classical["classical"]["plug_in"]["study"]
+    corr = classical["classical"]["corrected"]["study"]
+    table_rows = []
+    for key, label in STUDY_ROWS:
+        if (key, "study") not in rows and (key, "population") not in rows:
+            continue
+        table_rows.append(
+            [
+                esc(label),
+                _interval(rows.get((key, "study"))),
+                _interval(rows.get((key, "population"))),
+                _num(plug.get(key)),
+                _num(corr.get(key)),
+            ]
+        )
+    parts = [
+        f"<p>Posterior means with {prob:.0%} {esc(kind)}s. Study scope: the appraisers in "
+        "the study. Population scope: a new appraiser drawn from the same population. Both "
+        "are averaged over the study's parts (which were chosen, not sampled).</p>",
+        _table(
+            [
+                "quantity",
+                "study's appraisers",
+                "new appraiser",
+                "classical plug-in",
+                "classical corrected",
+            ],
+            table_rows,
+            {1, 2, 3, 4},
+        ),
+        "<ul>" + "".join(f"<li>{esc(s)}</li>" for s in summary["readings"]) + "</ul>",
+        _difference_sentence(summary, classical),
+        figure_tag(inputs.figures.get("study_densities"), "posterior densities, study level"),
+        "<h3>Per part</h3>",
+        figure_tag(inputs.figures.get("per_part"), "per-part variances with intervals"),
+    ]
+    appraisers = figure_tag(inputs.figures.get("appraisers"), "appraiser call rates")
+    if appraisers:
+        parts += ["<h3>Per appraiser</h3>", appraisers]
+    parts.append("<h3>Classical statistics</h3>")
+    parts.append(_classical_tables(classical))
+    return "".join(parts)
+
+
+def _classical_tables(classical: dict) -> str:
+    prob = classical["prob"]
+    agreement = [
+        [
+            esc(r["kind"].replace("_", " ")),
+            esc(r["appraiser"] or "all"),
+            f"{r['agreed']}/{r['parts']}",
+            f"{r['share']:.1%}",
+            " ; ".join(
+                f"{esc(i['method'])} {i['lower']:.1%} to {i['upper']:.1%}" for i in r["intervals"]
+            ),
+        ]
+        for r in classical["agreement"]
+    ]
+    kappa = [
+        [
+            esc(r["kind"].replace("_", " ")),
+            esc(" vs ".join(x for x in (r["appraiser"], r["other"]) if x) or "all"),
+            esc(r["statistic"]),
+            _num(r["kappa"], 3),
+            _num(r.get("se_fleiss_1971", r.get("se_fce_1969")), 3),
+            _num(r["z"], 1),
+        ]
+        for r in classical["kappa"]
+    ]
+    errors = [
+        [
+            esc(r["key"].replace("_", " ")),
+            esc(r["appraiser"] or "all"),
+            f"{r['errors']}/{r['calls']}",
+            f"{r['rate']:.1%}",
+            f"{r['intervals'][0]['lower']:.1%} to {r['intervals'][0]['upper']:.1%}",
+        ]
+        for r in classical["error_rates"]
+    ]
+    out = (
+        f"<p>Agreement over parts ({prob:.0%} intervals):</p>"
+        + _table(["kind", "appraiser", "agreed/parts", "share", "intervals"], agreement, {2, 3})
+        + "<p>Kappa (standard error of Fleiss (1971) or Fleiss, Cohen &amp; Everitt (1969); "
+        "z uses the standard error under no agreement beyond chance):</p>"
+        + _table(["kind", "who", "statistic", "kappa", "SE", "z"], kappa, {3, 4, 5})
+    )
+    if errors:
+        out += (
+            f"<p>Calls against the reference status ({prob:.0%} exact intervals; calls "
+            "treated as independent):</p>"
+            + _table(["rate", "appraiser", "errors/calls", "rate", "interval"], errors, {2, 3})
+        )
+    return out
+
+
+def _checks_section(inputs: ReportInputs) -> str:
+    checks = inputs.checks
+    if checks is None:
+        return "<p>No model checks were run for this fit ('bayes-rr check').</p>"
+    ppc = checks["posterior_predictive"]
+    rows = [
+        [
+            esc(s["description"]),
+            _num(s["observed"], 3),
+            f"{s['replicated_mean']:.3f} ({s['replicated_lower']:.3f} to "
+            f"{s['replicated_upper']:.3f})",
+            _num(s["p_value"], 3),
+            "<span class='flag'>FLAG</span>" if s["flagged"] else "",
+        ]
+        for s in ppc["statistics"]
+    ]
+    return (
+        f"<p>Method: {esc(ppc['method'])}, {ppc['draws']} replicated studies with the "
+        f"same design. p-value: {esc(ppc['p_value'])}; flagged when {esc(ppc['flag_when'])}."
+        "</p>"
+        + _table(["statistic", "observed", "replicated mean (95% range)", "p", ""], rows, {1, 2, 3})
+        + figure_tag(inputs.figures.get("checks"), "posterior predictive check panels")
+    )
+
+
+def _cautions_section(inputs: ReportInputs) -> str:
+    family = inputs.summary["model"]["family"]
+    items = [
+        "The parts of an attribute study are chosen on purpose (often near the limit), not "
+        "sampled from production: the study-level results describe these parts, not the "
+        "call error rates on production parts.",
+        "The model assumes calls within a part-appraiser cell are independent given the "
+        "call probability (no memory of earlier trials); studies should randomise the order "
+        "of parts and hide earlier calls.",
+        "The population scope assumes the study's appraisers are representative of the "
+        "appraisers who will use the method; with few appraisers that scope is uncertain.",
+    ]
+    if family == "beta_binomial":
+        items.append(
+            "The beta-binomial model ignores appraiser identity across parts (see the model "
+            "section)."
+        )
+    items.extend(CAUTIONS)
+    return "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
+
+
+def _provenance_section(inputs: ReportInputs) -> str:
+    run = inputs.run
+    settings = run["sampler_settings"]
+    rows = [
+        ["fit folder", esc(inputs.folder)],
+        ["data SHA-256", f"<code>{esc(run['data_sha256'])}</code>"],
+        ["model spec SHA-256", f"<code>{esc(run['spec_sha256'])}</code>"],
+        ["seed", esc(run["seed"])],
+        ["sampler", esc(", ".join(f"{k}={v}" for k, v in settings.items()))],
+        ["started / finished (UTC)", f"{esc(run['started'])} / {esc(run['finished'])}"],
+        ["timings (s)", esc(", ".join(f"{k} {v:.1f}" for k, v in run["timings"].items()))],
+        ["versions", esc(", ".join(f"{k} {v}" for k, v in run["versions"].items()))],
+        ["platform", esc(run["platform"])],
+    ]
+    return _table(["item", "value"], rows)
+
+
+def render_report(inputs: ReportInputs) -> str:
+    """The whole report as one HTML document."""
+    summary = inputs.summary
+    ok = summary["diagnostics"]["ok"]
+    title = inputs.title or f"Pass/fail inspection study: {summary['design']['source']}"
+    banner = (
+        ""
+        if ok
+        else "<p class='banner'>NOT CONVERGED: the sampler did not pass the convergence gate. "
+        "These results must not be used; no result tables are shown.</p>"
+    )
+    sections = [("first", "Findings in brief", _findings(inputs))]
+    sections += [
+        ("", "The study", _study_section(inputs)),
+        ("", "The model and its assumptions", _model_section(inputs)),
+        ("", "Did the sampler converge?", _convergence_section(inputs)),
+    ]
+    if ok:
+        sections += [
+            ("", "Results", _results_section(inputs)),
+            ("", "Does the model reproduce the data?", _checks_section(inputs)),
+        ]
+    sections += [
+        ("", "Cautions and limitations", _cautions_section(inputs)),
+        ("", "Provenance", _provenance_section(inputs)),
+    ]
+    body = "".join(
+        f'<section class="{cls}"><h2>{esc(name)}</h2>{content}</section>'
+        for cls, name, content in sections
+    )
+    return (
+        "<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
+        f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
+        f"<title>{esc(title)}</title><style>{STYLE}</style></head><body>"
+        f"{banner}<h1>{esc(title)}</h1>"
+        f"<p class='note'>Report of bayes-rr {esc(inputs.run['versions']['bayes_rr'])}, "
+        f"model {esc(summary['model']['name'])}.</p>"
+        f"{body}</body></html>\n"
+    )
