@@ -17,6 +17,7 @@ because the statistics are discrete); it is flagged below 0.025 or above 0.975.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -79,6 +80,34 @@ class CheckResult:
     def flagged(self) -> tuple[CheckStatistic, ...]:
         return tuple(s for s in self.statistics if s.flagged)
 
+    @property
+    def chance_limit(self) -> int:
+        """Flags that chance alone gives (95th percentile of Binomial(m, 0.05)) when the
+        model is right, for m statistics (taken as independent, a rough guide)."""
+        from scipy import stats
+
+        return int(stats.binom.ppf(0.95, len(self.statistics), FLAG_LOW * 2))
+
+    @property
+    def verdict(self) -> str:
+        count, limit = len(self.flagged), self.chance_limit
+        if count == 0:
+            return "no statistic flagged: the model reproduces these features of the data"
+        if count <= limit:
+            return (
+                f"{count} of {len(self.statistics)} statistics flagged, no more than chance "
+                f"gives when the model is right (up to {limit}); look at them, but they are "
+                "not by themselves evidence against the model"
+            )
+        return (
+            f"{count} of {len(self.statistics)} statistics flagged, more than chance gives "
+            f"(up to {limit}): the model misses features of the data; consider another model"
+        )
+
+    @property
+    def passes(self) -> bool:
+        return len(self.flagged) <= self.chance_limit
+
     def as_dict(self) -> dict:
         return {
             "method": self.method,
@@ -87,6 +116,9 @@ class CheckResult:
             "p_value": "mid-p: P(T_rep > T_obs) + P(T_rep = T_obs) / 2",
             "flag_when": f"p < {FLAG_LOW} or p > {FLAG_HIGH}",
             "flagged": [s.name for s in self.flagged],
+            "chance_limit": self.chance_limit,
+            "passes": self.passes,
+            "verdict": self.verdict,
             "statistics": [s.as_dict() for s in self.statistics],
         }
 
@@ -311,8 +343,13 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
             f"the fits were made on different data ({listing}); LOO compares models of the "
             "same data only"
         )
-    loos = {name: az.loo(idata, pointwise=True) for name, idata in named_idata.items()}
-    table = az.compare(loos, ic="loo", method="stacking")
+    with warnings.catch_warnings():
+        # The Pareto-k warning is reported below, per model and in words.
+        warnings.filterwarnings("ignore", message="Estimated shape parameter of Pareto")
+        # arviz 0.23's compare calls DataFrame.sort_values(inplace=True), deprecated in pandas 3.
+        warnings.filterwarnings("ignore", message="The inplace keyword in DataFrame.sort_values")
+        loos = {name: az.loo(idata, pointwise=True) for name, idata in named_idata.items()}
+        table = az.compare(loos, ic="loo", method="stacking")
     rows = []
     for name, row in table.iterrows():
         k = np.asarray(loos[name].pareto_k)

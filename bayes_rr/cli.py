@@ -540,6 +540,107 @@ def fit(
         raise typer.Exit(3)
 
 
+def print_checks(document: dict) -> None:
+    ppc = document["posterior_predictive"]
+    table = Table(
+        title=f"Posterior predictive check ({ppc['draws']} replicated studies; "
+        f"flag when {ppc['flag_when']})"
+    )
+    for col in ("statistic", "observed", "replicated mean (95% range)", "p", ""):
+        table.add_column(col)
+    for stat in ppc["statistics"]:
+        table.add_row(
+            stat["name"],
+            f"{stat['observed']:.3f}",
+            f"{stat['replicated_mean']:.3f} ({stat['replicated_lower']:.3f}-"
+            f"{stat['replicated_upper']:.3f})",
+            f"{stat['p_value']:.3f}",
+            "FLAG" if stat["flagged"] else "",
+        )
+    out.print(table)
+    flagged = ppc["flagged"]
+    out.print(ppc["verdict"][0].upper() + ppc["verdict"][1:] + ".")
+    if flagged:
+        out.print(f"flagged: {', '.join(flagged)}")
+    if not document["converged"]:
+        out.print("[bold red]The fit did not pass the convergence gate: these checks are of a "
+                  "posterior that must not be used.[/]")  # fmt: skip
+
+
+FitDir = Annotated[Path, typer.Argument(help="A folder written by 'bayes-rr fit'.")]
+
+
+@app.command()
+@handles_errors
+def check(
+    fit_dir: FitDir,
+    draws: Annotated[
+        int, typer.Option(min=20, help="Posterior draws to replicate the study from.")
+    ] = 500,
+    seed: Annotated[int, typer.Option(help="Seed of the replication.")] = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON instead of tables.")] = False,
+) -> None:
+    """Check that the model reproduces the features of the data that matter
+    (posterior predictive check), and what the priors alone imply (prior predictive
+    check). Writes checks.json into the fit folder."""
+    from bayes_rr.pipeline import check_fit
+
+    document = check_fit(fit_dir, draws=draws, seed=seed)
+    if as_json:
+        sys.stdout.write(dumps(document) + "\n")
+    else:
+        print_checks(document)
+        out.print(f"written to {fit_dir / 'checks.json'}")
+
+
+@app.command()
+@handles_errors
+def compare(
+    fit_dirs: Annotated[list[Path], typer.Argument(help="Two or more fit folders (same data).")],
+    out_file: Annotated[
+        Path | None, typer.Option("--out", help="Also write the comparison as JSON here.")
+    ] = None,
+) -> None:
+    """Compare models of the same data by PSIS-LOO (elpd differences, stacking weights)."""
+    from bayes_rr.pipeline import compare_folders
+
+    result = compare_folders(fit_dirs, out_file)
+    table = Table(title=result["method"])
+    for col in ("model", "elpd_loo (SE)", "elpd diff (SE)", "p_loo", "weight", "Pareto k > 0.7"):
+        table.add_column(col)
+    for row in result["models"]:
+        table.add_row(
+            row["model"],
+            f"{row['elpd_loo']:.1f} ({row['se']:.1f})",
+            f"{row['elpd_diff']:.1f} ({row['diff_se']:.1f})",
+            f"{row['p_loo']:.1f}",
+            f"{row['stacking_weight']:.2f}",
+            str(row["pareto_k_above_0.7"]),
+        )
+    out.print(table)
+    out.print(result["verdict"] + ".")
+    for row in result["models"]:
+        out.print(f"{row['model']}: {row['pareto_k_note']}.")
+
+
+@app.command()
+@handles_errors
+def report(
+    fit_dir: FitDir,
+    out_file: Annotated[
+        Path | None, typer.Option("--out", help="Report file (default FIT_DIR/report.html).")
+    ] = None,
+    title: Annotated[str | None, Col("--title", help="Title of the study.")] = None,
+    site: Annotated[str | None, Col("--site", help="Site, line or lab of the study.")] = None,
+    notes: Annotated[str | None, Col("--notes", help="Free text: who, when, why.")] = None,
+) -> None:
+    """Write one self-contained HTML report of a fit (runs the checks if needed)."""
+    from bayes_rr.pipeline import report_fit
+
+    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes)
+    out.print(f"report written to {path}")
+
+
 @app.command()
 @handles_errors
 def demo(
@@ -549,8 +650,9 @@ def demo(
     describe_only: Annotated[
         bool, typer.Option("--describe-only", help="Only describe the demo data; do not fit.")
     ] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
 ) -> None:
-    """Run the toolkit on the bundled, invented demo study."""
+    """Run the whole job on the bundled, invented demo study: describe, fit, check, report."""
     from bayes_rr.describe import demo_path, describe_file
 
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -560,12 +662,21 @@ def demo(
     print_description(describe_file(target))
     if describe_only:
         return
+    from bayes_rr.pipeline import check_fit, report_fit
+
     fit_dir = out_dir / "fit"
     out.print(f"fitting the default model (crossed-logit) into {fit_dir} ...")
-    summary = run_fit(target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True)
+    summary = run_fit(target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True, quiet=quiet)
     classical = json.loads((fit_dir / "classical.json").read_text())
     print_fit(summary, classical)
-    out.print(f"results written to {fit_dir}")
+    out.print("checking the model ...")
+    print_checks(check_fit(fit_dir))
+    path = report_fit(
+        fit_dir,
+        title="Demo: final visual check of crimped terminals (invented data)",
+        notes="Invented data shipped with bayes-rr to show the workflow; not a real study.",
+    )
+    out.print(f"[bold]report written to {path}[/] (open it in a browser)")
     if not summary["diagnostics"]["ok"]:
         raise typer.Exit(3)
 

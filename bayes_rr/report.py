@@ -127,18 +127,8 @@ def _findings(inputs: ReportInputs) -> str:
     sentences = list(summary["readings"])
     checks = inputs.checks
     if checks is not None:
-        flagged = checks["posterior_predictive"]["flagged"]
-        if flagged:
-            sentences.append(
-                f"The posterior predictive check flags {len(flagged)} feature(s) of the data "
-                f"that the model does not reproduce well ({esc(', '.join(flagged))}); read the "
-                "results with that in mind."
-            )
-        else:
-            sentences.append(
-                "The posterior predictive check finds no feature of the data that the model "
-                "fails to reproduce."
-            )
+        ppc = checks["posterior_predictive"]
+        sentences.append(f"Posterior predictive check: {ppc['verdict']}.")
     return "<p>" + " ".join(esc(s) for s in sentences) + "</p>"
 
 
@@ -389,7 +379,7 @@ def _checks_section(inputs: ReportInputs) -> str:
     return (
         f"<p>Method: {esc(ppc['method'])}, {ppc['draws']} replicated studies with the "
         f"same design. p-value: {esc(ppc['p_value'])}; flagged when {esc(ppc['flag_when'])}."
-        "</p>"
+        f" Verdict: {esc(ppc['verdict'])}.</p>"
         + _table(["statistic", "observed", "replicated mean (95% range)", "p", ""], rows, {1, 2, 3})
         + figure_tag(inputs.figures.get("checks"), "posterior predictive check panels")
     )

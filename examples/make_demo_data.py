@@ -3,7 +3,8 @@
 The scenario is made up for this project: a final visual check of crimped wire
 terminals at a fictional harness workshop. Three inspectors call 45 terminals
 three times each, in random order, as pass or fail; a lab cross-section of each
-terminal gives its reference status. One inspector missed the third round on
+terminal gives its reference status. The simulation makes one inspector lean
+towards passing terminals, so the study has a reproducibility story to tell. One inspector missed the third round on
 a few terminals, so the design is slightly unbalanced, as real studies are.
 
 Run from the repository root:  python examples/make_demo_data.py
@@ -27,14 +28,14 @@ def main() -> None:
         n_parts=45,
         n_appraisers=3,
         n_trials=3,
-        mu=-3.2,
-        sigma_part=1.6,
-        sigma_appraiser=0.45,
-        sigma_interaction=0.35,
-        reference_effect=6.0,
+        mu=-2.4,
+        sigma_part=1.5,
+        sigma_appraiser=1.1,
+        sigma_interaction=0.5,
+        reference_effect=4.8,
         reference_share=0.4,
         appraiser_names=["Ayla", "Bruno", "Chen"],
-        seed=20261201,
+        seed=12,
     )
     calls = sim.study.calls.copy()
     rng = np.random.default_rng(7)

@@ -52,3 +52,22 @@ def fit_dirs(fits, tmp_path_factory):
 
     root = tmp_path_factory.mktemp("fits")
     return {name: write_fit(result, root / name) for name, result in fits.items()}
+
+
+@pytest.fixture(scope="session")
+def strong_appraisers():
+    """Appraisers who differ a lot (a feature the beta-binomial model lacks), fitted by both
+    bundled models."""
+    from bayes_rr.fit import fit_study
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.simulate import simulate_crossed_logit
+    from bayes_rr.spec import load_spec
+
+    sim = simulate_crossed_logit(
+        40, 4, 3, mu=0.0, sigma_part=1.5, sigma_appraiser=1.5, sigma_interaction=0.2, seed=8
+    )
+    out = {}
+    for name in ("crossed-logit", "beta-binomial"):
+        spec = load_spec(name)
+        out[name] = fit_study(sim.study, spec, SamplerSettings.from_spec(spec, **FAST))
+    return sim, out
