@@ -4,8 +4,9 @@ The scenario is made up for this project: a final visual check of crimped wire
 terminals at a fictional harness workshop. Three inspectors call 45 terminals
 three times each, in random order, as pass or fail; a lab cross-section of each
 terminal gives its reference status. The simulation makes one inspector lean
-towards passing terminals, so the study has a reproducibility story to tell. One inspector missed the third round on
-a few terminals, so the design is slightly unbalanced, as real studies are.
+towards passing terminals, so the study has a reproducibility story to tell.
+One inspector missed the third round on a few terminals, so the design is
+slightly unbalanced, as real studies are.
 
 Run from the repository root:  python examples/make_demo_data.py
 """

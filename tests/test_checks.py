@@ -64,8 +64,8 @@ def test_flipping_appraiser_is_flagged_under_beta_binomial():
                                   sigma_interaction=0.2, seed=21)  # fmt: skip
     flipped = flip_borderline(base, appraiser=0, seed=2)
     spec = load_spec("beta-binomial")
-    result = fit_study(flipped.study, spec, SamplerSettings.from_spec(spec, draws=1000,
-                                                                     tune=1000, seed=4))  # fmt: skip
+    settings = SamplerSettings.from_spec(spec, draws=1000, tune=1000, seed=4)
+    result = fit_study(flipped.study, spec, settings)
     check = posterior_predictive_check(result.idata.posterior, spec, flipped.study)
     assert check.flagged, check.verdict
 
@@ -98,4 +98,4 @@ def test_prior_predictive_quantiles(small_sim):
     for row in rows:
         assert row["q025"] <= row["q25"] <= row["median"] <= row["q75"] <= row["q975"]
         if row["key"].endswith("_share") or row["key"].endswith("disagreement"):
-            assert 0 <= row["q025"] and row["q975"] <= 1
+            assert row["q025"] >= 0 and row["q975"] <= 1

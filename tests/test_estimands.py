@@ -159,7 +159,9 @@ def _fake_logit_posterior(study, draws=50, seed=0):
             "sigma_appraiser": (("chain", "draw"), np.abs(rng.normal(0.6, 0.1, shape))),
             "appraiser_effect": (("chain", "draw", "appraiser"), rng.normal(0, 0.6, (*shape, 3))),
             "sigma_interaction": (("chain", "draw"), np.abs(rng.normal(0.3, 0.05, shape))),
-            "interaction_effect": (("chain", "draw", "cell"), rng.normal(0, 0.3, (*shape, n_cells))),
+            "interaction_effect": (
+                ("chain", "draw", "cell"), rng.normal(0, 0.3, (*shape, n_cells))
+            ),
         },
         coords={"chain": [0, 1], "draw": np.arange(draws), "part": list(study.parts),
                 "appraiser": list(study.appraisers)},

@@ -57,7 +57,7 @@ def test_every_estimand_of_the_contract_is_summarised(fits, name):
 
 def test_numpy_log_likelihood_matches_pymc(fits, small_sim):
     # Reference: pymc.compute_log_likelihood on the same posterior draws.
-    for name, result in fits.items():
+    for result in fits.values():
         model = build_model(result.spec, small_sim.study)
         post = result.idata.posterior.isel(draw=slice(0, 50))
         free = [v.name for v in model.free_RVs]

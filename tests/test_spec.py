@@ -71,7 +71,7 @@ def test_bad_specs_raise_spec_error_naming_file_key_and_value(text, message):
 
 def test_spec_never_executes_code():
     # TOML is data: a string that looks like code stays a string.
-    text = VALID.replace('name = "t"', 'name = "__import__(\'os\').system(\'false\')"')
+    text = VALID.replace('name = "t"', "name = \"__import__('os').system('false')\"")
     assert parse_spec(text).name.startswith("__import__")
 
 
