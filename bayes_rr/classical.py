@@ -202,13 +202,13 @@ def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreem
         if cells.empty:
             skipped.append(
                 {
-                    "statistic": f"within-appraiser agreement ({appraiser})",
+                    "statistic": f"own-trials agreement ({appraiser})",
                     "reason": "needs a part called at least twice by the appraiser",
                 }
             )
             continue
         agreed = ((cells["s"] == 0) | (cells["s"] == cells["n"])).to_numpy()
-        out.append(_agreement("within_appraiser", appraiser, agreed, prob))
+        out.append(_agreement("own_trials", appraiser, agreed, prob))
     per_part = study.cells.groupby("part", sort=False).agg(
         n=("n", "sum"), s=("s", "sum"), appraisers=("appraiser", "size")
     )
@@ -216,13 +216,13 @@ def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreem
     if len(study.appraisers) < 2 or multi.empty:
         skipped.append(
             {
-                "statistic": "between-appraiser agreement",
+                "statistic": "across-appraiser agreement",
                 "reason": "needs at least two appraisers calling the same part",
             }
         )
     else:
         agreed = ((multi["s"] == 0) | (multi["s"] == multi["n"])).to_numpy()
-        out.append(_agreement("between_appraisers", None, agreed, prob))
+        out.append(_agreement("across_appraisers", None, agreed, prob))
     if study.reference is not None:
         ref = calls["part"].map(study.reference).to_numpy()
         matches = calls.assign(match=(calls["call"].to_numpy() == ref))
@@ -427,7 +427,7 @@ def _binary_counts(s: np.ndarray, n: np.ndarray) -> np.ndarray:
 
 
 def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
-    """Fleiss' kappa within appraisers, between appraisers and against the reference;
+    """Fleiss' kappa of each appraiser's own trials, across appraisers and against the reference;
     Cohen's kappa for each pair of appraisers (trial-matched calls on common parts)."""
     rows: list[KappaRow] = []
     skipped: list[dict] = []
@@ -442,9 +442,9 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
     for appraiser in study.appraisers:
         mine = cells[cells["appraiser"] == appraiser]
         attempt(
-            f"Fleiss' kappa within appraiser ({appraiser})",
+            f"Fleiss' kappa of own trials ({appraiser})",
             lambda mine=mine, appraiser=appraiser: KappaRow(
-                "within_appraiser",
+                "own_trials",
                 "fleiss",
                 appraiser,
                 None,
@@ -455,9 +455,9 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
     if len(study.appraisers) >= 2:
         per_part = cells.groupby("part", sort=False)[["n", "s"]].sum()
         attempt(
-            "Fleiss' kappa between appraisers",
+            "Fleiss' kappa across appraisers",
             lambda: KappaRow(
-                "between_appraisers",
+                "across_appraisers",
                 "fleiss",
                 None,
                 None,
@@ -467,7 +467,7 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
         )
     else:
         skipped.append(
-            {"statistic": "Fleiss' kappa between appraisers", "reason": "needs two appraisers"}
+            {"statistic": "Fleiss' kappa across appraisers", "reason": "needs two appraisers"}
         )
     if study.reference is not None:
         calls = study.calls.assign(ref=study.calls["part"].map(study.reference).to_numpy())

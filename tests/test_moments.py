@@ -76,5 +76,5 @@ def test_one_appraiser_one_trial_computes_the_rest():
     names = " ".join(item["statistic"] for item in result.not_computed)
     assert "reproducibility" in names
     assert "corrected repeatability" in names
-    assert "between appraisers" in names
+    assert "across appraisers" in names
     assert result.plug_in.study["rr_variance"] is not None
