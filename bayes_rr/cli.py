@@ -92,6 +92,7 @@ def read_options(
     accept_label: list[str] | None,
     drop_missing: bool,
     sheet: str | None,
+    wide_column: list[str] | None = None,
 ) -> ReadOptions:
     columns = {
         role: name
@@ -107,6 +108,17 @@ def read_options(
     }
     if layout not in ("auto", "tidy", "wide"):
         raise DataError(f"--layout {layout!r} is not one of 'auto', 'tidy', 'wide'")
+    wide = None
+    if wide_column:
+        wide = {}
+        for item in wide_column:
+            column, sep, target = item.rpartition("=")
+            appraiser, colon, trial = target.rpartition(":")
+            if not sep or not colon or not column or not appraiser or not trial:
+                raise DataError(
+                    f"--wide-column {item!r}: expected COLUMN=APPRAISER:TRIAL, e.g. 'Op1 r2=Ann:2'"
+                )
+            wide[column] = (appraiser, trial)
     return ReadOptions(
         layout=layout,  # type: ignore[arg-type]
         columns=columns,
@@ -114,6 +126,7 @@ def read_options(
         accept_labels=tuple(accept_label or ()),
         drop_missing=drop_missing,
         sheet=sheet,
+        wide_columns=wide,
     )
 
 
@@ -151,6 +164,14 @@ def data_options(func):
             bool, typer.Option("--drop-missing", help="Drop empty calls instead of refusing.")
         ],
         "sheet": Annotated[str | None, Col("--sheet", help="Sheet of an XLSX workbook.")],
+        "wide_column": Annotated[
+            list[str] | None,
+            Col(
+                "--wide-column",
+                help="Wide layout with other column names: COLUMN=APPRAISER:TRIAL (repeat for "
+                "every call column).",
+            ),
+        ],
     }
     func.__annotations__.update(params)
     return func
@@ -307,6 +328,7 @@ def describe(
     accept_label=None,
     drop_missing=False,
     sheet=None,
+    wide_column=None,
 ) -> None:
     """Validate a study file and show its design and classical statistics."""
     from bayes_rr.describe import describe_file
@@ -323,6 +345,7 @@ def describe(
         accept_label,
         drop_missing,
         sheet,
+        wide_column,
     )
     result = describe_file(data, options, prob)
     if as_json:
@@ -498,6 +521,7 @@ def fit(
     accept_label=None,
     drop_missing=False,
     sheet=None,
+    wide_column=None,
 ) -> None:
     """Fit a Bayesian model to a study and write the results to a folder.
 
@@ -516,6 +540,7 @@ def fit(
         accept_label,
         drop_missing,
         sheet,
+        wide_column,
     )
     summary = run_fit(
         data,

@@ -480,72 +480,61 @@ def summarize(
     ds: xr.Dataset, prob: float = DEFAULT_PROB, interval: str = "hdi", *, level: str | None = None
 ) -> list[SummaryRow]:
     """Mean, median, sd, interval (``hdi`` or ``eti``), r_hat, ess_bulk and ess_tail of every
-    variable of ``ds`` (estimands, or posterior parameters with ``level="parameter"``)."""
-    import arviz as az
+    variable of ``ds`` (estimands, or posterior parameters with ``level="parameter"``).
+
+    All elements are diagnosed at once (``bayes_rr.diagnostics``, checked against ArviZ).
+    """
+    from bayes_rr import diagnostics
 
     if interval not in ("hdi", "eti"):
         raise ValueError(f"interval {interval!r}: expected 'hdi' or 'eti'")
-    # A share is undefined in draws where T = 0 (e.g. a conjugate draw of exactly
-    # 0 for a part nobody rejects). Such elements are summarised as missing with
-    # a note; the rest is computed on the data with those draws filled in.
-    undefined = ds.isnull().mean(("chain", "draw"))
-    ds = ds.fillna(0.0)
-    mean = ds.mean(("chain", "draw"))
-    median = ds.median(("chain", "draw"))
-    sd = ds.std(("chain", "draw"), ddof=1)
-    if interval == "hdi":
-        bounds = az.hdi(ds, hdi_prob=prob)
-        lower, upper = bounds.sel(hdi="lower"), bounds.sel(hdi="higher")
-    else:
-        q = ds.quantile([(1 - prob) / 2, (1 + prob) / 2], dim=("chain", "draw"))
-        lower, upper = q.isel(quantile=0), q.isel(quantile=1)
-    rhat = az.rhat(ds)
-    ess_bulk = az.ess(ds, method="bulk")
-    ess_tail = az.ess(ds, method="tail")
-    rows = []
+    columns, labels = [], []
     for name, da in ds.data_vars.items():
+        da = da.transpose("chain", "draw", ...)
+        extra = list(da.dims[2:])
+        values = da.to_numpy().reshape(da.sizes["chain"], da.sizes["draw"], -1)
+        columns.append(values)
+        for idx in np.ndindex(*[da.sizes[d] for d in extra]) if extra else [()]:
+            labels.append(
+                (name, {d: str(da[d].to_numpy()[i]) for d, i in zip(extra, idx, strict=True)})
+            )
+    if not columns:
+        return []
+    x = np.concatenate(columns, axis=2)
+    # A share is undefined in draws where T = 0 (e.g. a conjugate draw of exactly 0
+    # for a part nobody rejects): such quantities are summarised as missing, with a note.
+    undefined = np.isnan(x).mean(axis=(0, 1))
+    x = np.where(np.isnan(x), 0.0, x)
+    flat = x.reshape(-1, x.shape[2])
+    if interval == "hdi":
+        lower, upper = diagnostics.hdi(x, prob)
+    else:
+        lower, upper = np.quantile(flat, [(1 - prob) / 2, (1 + prob) / 2], axis=0)
+    stats_ = {
+        "mean": flat.mean(axis=0),
+        "median": np.median(flat, axis=0),
+        "sd": flat.std(axis=0, ddof=1),
+        "lower": lower,
+        "upper": upper,
+        "r_hat": diagnostics.rhat(x) if x.shape[0] > 1 else np.full(x.shape[2], np.nan),
+        "ess_bulk": diagnostics.ess_bulk(x),
+        "ess_tail": diagnostics.ess_tail(x),
+    }
+    rows = []
+    for k, (name, where) in enumerate(labels):
         if level == "parameter":
             scope, lev, key = None, "parameter", name
         else:
             scope, lev, key = parse_variable_name(name)
-        extra = [d for d in da.dims if d not in ("chain", "draw")]
-        index = np.ndindex(*[da.sizes[d] for d in extra]) if extra else [()]
-        for idx in index:
-            sel = dict(zip(extra, idx, strict=True))
-            labels = {d: str(da[d].to_numpy()[i]) for d, i in sel.items()}
-
-            def at(x, name=name, sel=sel):
-                return float(x[name].isel(sel).to_numpy()) if sel else float(x[name].to_numpy())
-
-            share_undefined = at(undefined)
-            if share_undefined > 0:
-                rows.append(
-                    SummaryRow(
-                        key,
-                        scope,
-                        lev,
-                        labels.get("part"),
-                        labels.get("appraiser"),
-                        *([math.nan] * 8),
-                        note=f"undefined in {share_undefined:.1%} of draws (T = 0)",
-                    )
-                )
-                continue
-            rows.append(
-                SummaryRow(
-                    key=key,
-                    scope=scope,
-                    level=lev,
-                    part=labels.get("part"),
-                    appraiser=labels.get("appraiser"),
-                    mean=at(mean),
-                    median=at(median),
-                    sd=at(sd),
-                    lower=at(lower),
-                    upper=at(upper),
-                    r_hat=at(rhat),
-                    ess_bulk=at(ess_bulk),
-                    ess_tail=at(ess_tail),
-                )
+        values = dict.fromkeys(stats_, math.nan)
+        note = None
+        if undefined[k] > 0:
+            note = f"undefined in {undefined[k]:.1%} of draws (T = 0)"
+        else:
+            values = {s: float(v[k]) for s, v in stats_.items()}
+        rows.append(
+            SummaryRow(
+                key, scope, lev, where.get("part"), where.get("appraiser"), **values, note=note
             )
+        )
     return rows

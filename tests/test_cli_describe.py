@@ -137,3 +137,17 @@ def test_real_process_exit_code_and_stderr(tmp_path):
     assert proc.stderr.count("\n") == 1 and "Traceback" not in proc.stderr
     assert "--reject-label" in proc.stderr
     assert hashlib.sha256(path.read_bytes()).hexdigest() == digest
+
+
+def test_explicit_wide_mapping(tmp_path):
+    path = write(
+        tmp_path, "w.csv", "part,Op one first,Op one second,Other\n1,ok,ng,ok\n2,ok,ok,ng\n"
+    )
+    result = run("describe", path, "--layout", "wide", "--json",
+                 "--wide-column", "Op one first=Ann:1", "--wide-column", "Op one second=Ann:2",
+                 "--wide-column", "Other=Bo:1")  # fmt: skip
+    assert result.exit_code == 0, result.output
+    design = json.loads(result.stdout)["design"]
+    assert design["appraiser_names"] == ["Ann", "Bo"] and design["calls"] == 6
+    bad = run("describe", path, "--wide-column", "nonsense")
+    assert bad.exit_code == 2 and "COLUMN=APPRAISER:TRIAL" in bad.stderr
