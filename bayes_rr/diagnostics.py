@@ -158,3 +158,14 @@ def hdi(x: np.ndarray, prob: float) -> tuple[np.ndarray, np.ndarray]:
     start = np.argmin(widths, axis=0)
     columns = np.arange(flat.shape[1])
     return flat[start, columns], flat[start + inside, columns]
+
+
+def diagnose(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(r_hat, ess_bulk, ess_tail) of each quantity, ranking the split chains once for both
+    bulk diagnostics."""
+    x = np.asarray(x, dtype=float)
+    split = _split(x)
+    z = _z_scale(split)
+    folded = np.abs(split - np.median(split.reshape(-1, split.shape[2]), axis=0))
+    r_hat = np.maximum(_basic_rhat(z), _basic_rhat(_z_scale(folded)))
+    return r_hat, _ess(z), ess_tail(x)

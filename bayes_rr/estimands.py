@@ -516,10 +516,8 @@ def summarize(
         "sd": flat.std(axis=0, ddof=1),
         "lower": lower,
         "upper": upper,
-        "r_hat": diagnostics.rhat(x) if x.shape[0] > 1 else np.full(x.shape[2], np.nan),
-        "ess_bulk": diagnostics.ess_bulk(x),
-        "ess_tail": diagnostics.ess_tail(x),
     }
+    stats_["r_hat"], stats_["ess_bulk"], stats_["ess_tail"] = diagnostics.diagnose(x)
     rows = []
     for k, (name, where) in enumerate(labels):
         if level == "parameter":

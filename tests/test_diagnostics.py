@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bayes_rr.diagnostics import average_ranks, ess_bulk, ess_tail, hdi, rhat
+from bayes_rr.diagnostics import average_ranks, diagnose, ess_bulk, ess_tail, hdi, rhat
 
 
 @pytest.fixture(scope="module")
@@ -49,3 +49,10 @@ def test_average_ranks_match_scipy_rankdata():
     data[:, 2] = 3.0
     expected = stats.rankdata(data, method="average", axis=0)
     np.testing.assert_array_equal(average_ranks(data), expected)
+
+
+def test_diagnose_equals_the_separate_functions(chains):
+    r, b, t = diagnose(chains)
+    np.testing.assert_array_equal(r, rhat(chains))
+    np.testing.assert_array_equal(b, ess_bulk(chains))
+    np.testing.assert_array_equal(t, ess_tail(chains))
