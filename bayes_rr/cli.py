@@ -130,6 +130,27 @@ def read_options(
     )
 
 
+DATA_OPTION_NAMES = (
+    "layout",
+    "part_col",
+    "appraiser_col",
+    "trial_col",
+    "call_col",
+    "reference_col",
+    "reference_value_col",
+    "reject_label",
+    "accept_label",
+    "drop_missing",
+    "sheet",
+    "wide_column",
+)
+
+
+def data_kwargs(values: dict) -> dict:
+    """The data-reading options among a command's arguments (for :func:`read_options`)."""
+    return {name: values[name] for name in DATA_OPTION_NAMES}
+
+
 def data_options(func):
     """Add the options that say how to read a study file to a command."""
     params = {
@@ -333,20 +354,7 @@ def describe(
     """Validate a study file and show its design and classical statistics."""
     from bayes_rr.describe import describe_file
 
-    options = read_options(
-        layout,
-        part_col,
-        appraiser_col,
-        trial_col,
-        call_col,
-        reference_col,
-        reference_value_col,
-        reject_label,
-        accept_label,
-        drop_missing,
-        sheet,
-        wide_column,
-    )
+    options = read_options(**data_kwargs(locals()))
     result = describe_file(data, options, prob)
     if as_json:
         sys.stdout.write(dumps(result) + "\n")
@@ -528,20 +536,7 @@ def fit(
     Exits with code 3 (results written but marked not to be used) when the
     sampler did not pass the convergence gate.
     """
-    options = read_options(
-        layout,
-        part_col,
-        appraiser_col,
-        trial_col,
-        call_col,
-        reference_col,
-        reference_value_col,
-        reject_label,
-        accept_label,
-        drop_missing,
-        sheet,
-        wide_column,
-    )
+    options = read_options(**data_kwargs(locals()))
     summary = run_fit(
         data,
         options,
