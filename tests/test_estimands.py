@@ -14,6 +14,7 @@ from bayes_rr.estimands import (
     decompose_population_beta,
     decompose_population_logit,
     decompose_study,
+    integrated_cell_log_lik,
     logistic_normal_moments,
     split_reproducibility_logit,
     study_level,
@@ -204,3 +205,18 @@ def test_summaries_have_every_documented_field(small_study):
     eti = summarize(est[["study__study__rr_variance"]], 0.9, "eti")[0]
     assert eti.lower == pytest.approx(np.quantile(draws, 0.05))
     assert {r.part for r in rows[1:]} == set(small_study.parts)
+
+
+@pytest.mark.parametrize(
+    ("eta", "sigma", "n", "k"),
+    [(0.3, 0.5, 3, 1), (-2.0, 1.2, 2, 0), (1.0, 0.05, 3, 3), (0.0, 1.0, 80, 30), (2.5, 2.5, 6, 1)],
+)
+def test_integrated_cell_likelihood_against_quad(eta, sigma, n, k):
+    # Reference: scipy.integrate.quad of Binomial(k | n, expit(eta + c)) N(c; 0, sigma^2).
+    expected = integrate.quad(
+        lambda c: stats.binom.pmf(k, n, expit(eta + c)) * stats.norm.pdf(c, 0, sigma),
+        -12 * sigma, 12 * sigma, epsabs=1e-15, limit=500, points=[0.0],
+    )[0]  # fmt: skip
+    ours = integrated_cell_log_lik(np.array([[eta]]), np.array([sigma]), np.array([n]),
+                                   np.array([k]))  # fmt: skip
+    assert ours[0, 0] == pytest.approx(np.log(expected), abs=1e-9)

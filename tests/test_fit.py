@@ -55,20 +55,43 @@ def test_every_estimand_of_the_contract_is_summarised(fits, name):
     ) - set(STUDY_KEYS)
 
 
-def test_numpy_log_likelihood_matches_pymc(fits, small_sim):
+def test_beta_binomial_log_likelihood_matches_pymc(fits, small_sim):
     # Reference: pymc.compute_log_likelihood on the same posterior draws.
-    for result in fits.values():
-        model = build_model(result.spec, small_sim.study)
-        post = result.idata.posterior.isel(draw=slice(0, 50))
-        free = [v.name for v in model.free_RVs]
-        idata = pm.compute_log_likelihood(
-            __import__("arviz").InferenceData(posterior=post[free]),
-            model=model,
-            progressbar=False,
-        )
-        ours = result.idata.log_likelihood["s"].isel(draw=slice(0, 50)).to_numpy()
-        np.testing.assert_allclose(ours, idata.log_likelihood["s"].to_numpy(), rtol=1e-6,
-                                   atol=1e-8)  # fmt: skip
+    result = fits["beta-binomial"]
+    model = build_model(result.spec, small_sim.study)
+    post = result.idata.posterior.isel(draw=slice(0, 50))
+    free = [v.name for v in model.free_RVs]
+    idata = pm.compute_log_likelihood(
+        __import__("arviz").InferenceData(posterior=post[free]), model=model, progressbar=False
+    )
+    ours = result.idata.log_likelihood["s"].isel(draw=slice(0, 50)).to_numpy()
+    np.testing.assert_allclose(ours, idata.log_likelihood["s"].to_numpy(), rtol=1e-6, atol=1e-8)
+
+
+def test_crossed_logit_log_likelihood_integrates_the_cell_effect(fits, small_sim):
+    # Reference: scipy.integrate.quad of Binomial(s | n, expit(eta + c)) N(c; 0, sigma_c^2).
+    from scipy import integrate, stats
+    from scipy.special import expit
+
+    result = fits["crossed-logit"]
+    post = result.idata.posterior
+    cells = small_sim.study.cells
+    ref = small_sim.study.reference.to_numpy()
+    for draw in (0, 7):
+        d = post.isel(chain=0, draw=draw)
+        for c in range(4):
+            i, j = cells["part_index"][c], cells["appraiser_index"][c]
+            eta = float(d["intercept"] + d["part_effect"][i] + d["appraiser_effect"][j]
+                        + d["reference_effect"] * ref[i])  # fmt: skip
+            sigma = float(d["sigma_interaction"])
+            n, k = int(cells["n"][c]), int(cells["s"][c])
+            expected = integrate.quad(
+                lambda z, eta=eta, sigma=sigma, n=n, k=k: stats.binom.pmf(k, n, expit(eta + z))
+                * stats.norm.pdf(z, 0, sigma),
+                -12 * sigma, 12 * sigma, epsabs=1e-14, limit=400,
+            )[0]  # fmt: skip
+            ours = float(result.idata.log_likelihood["s"].isel(chain=0, draw=draw, cell=c))
+            assert ours == pytest.approx(np.log(expected), abs=1e-8)
 
 
 def test_output_folder_files_and_schema(fit_dirs):
