@@ -9,6 +9,7 @@ did not pass the convergence gate.
 from __future__ import annotations
 
 import functools
+import inspect
 import json
 import sys
 from pathlib import Path
@@ -130,72 +131,95 @@ def read_options(
     )
 
 
-DATA_OPTION_NAMES = (
-    "layout",
-    "part_col",
-    "appraiser_col",
-    "trial_col",
-    "call_col",
-    "reference_col",
-    "reference_value_col",
-    "reject_label",
-    "accept_label",
-    "drop_missing",
-    "sheet",
-    "wide_column",
-)
-
-
-def data_kwargs(values: dict) -> dict:
-    """The data-reading options among a command's arguments (for :func:`read_options`)."""
-    return {name: values[name] for name in DATA_OPTION_NAMES}
-
-
 def data_options(func):
-    """Add the options that say how to read a study file to a command."""
+    """Give a command the options that say how to read a study file.
+
+    The options are added to the command's signature (so typer shows them under
+    ``--help``); the command itself receives one ``options: ReadOptions`` argument.
+    """
     params = {
-        "layout": Layout,
-        "part_col": Annotated[str | None, Col("--part-col", help="Column holding the part.")],
-        "appraiser_col": Annotated[
-            str | None, Col("--appraiser-col", help="Column holding the appraiser.")
-        ],
-        "trial_col": Annotated[str | None, Col("--trial-col", help="Column holding the trial.")],
-        "call_col": Annotated[str | None, Col("--call-col", help="Column holding the call.")],
-        "reference_col": Annotated[
-            str | None, Col("--reference-col", help="Column holding the reference status.")
-        ],
-        "reference_value_col": Annotated[
-            str | None,
-            Col("--reference-value-col", help="Column holding a continuous reference value."),
-        ],
-        "reject_label": Annotated[
-            str | None,
-            Col(
-                "--reject-label",
-                help="The label that means reject, when labels are not one of 0/1, "
-                "accept/reject, pass/fail, go/no-go, good/bad, ok/ng, "
-                "conforming/nonconforming.",
-            ),
-        ],
-        "accept_label": Annotated[
-            list[str] | None,
-            Col("--accept-label", help="With --reject-label: a label meaning accept (repeat)."),
-        ],
-        "drop_missing": Annotated[
-            bool, typer.Option("--drop-missing", help="Drop empty calls instead of refusing.")
-        ],
-        "sheet": Annotated[str | None, Col("--sheet", help="Sheet of an XLSX workbook.")],
-        "wide_column": Annotated[
-            list[str] | None,
-            Col(
-                "--wide-column",
-                help="Wide layout with other column names: COLUMN=APPRAISER:TRIAL (repeat for "
-                "every call column).",
-            ),
-        ],
+        "layout": (Layout, "auto"),
+        "part_col": (
+            Annotated[str | None, Col("--part-col", help="Column holding the part.")],
+            None,
+        ),
+        "appraiser_col": (
+            Annotated[str | None, Col("--appraiser-col", help="Column holding the appraiser.")],
+            None,
+        ),
+        "trial_col": (
+            Annotated[str | None, Col("--trial-col", help="Column holding the trial.")],
+            None,
+        ),
+        "call_col": (
+            Annotated[str | None, Col("--call-col", help="Column holding the call.")],
+            None,
+        ),
+        "reference_col": (
+            Annotated[
+                str | None, Col("--reference-col", help="Column holding the reference status.")
+            ],
+            None,
+        ),
+        "reference_value_col": (
+            Annotated[
+                str | None,
+                Col("--reference-value-col", help="Column holding a continuous reference value."),
+            ],
+            None,
+        ),
+        "reject_label": (
+            Annotated[
+                str | None,
+                Col(
+                    "--reject-label",
+                    help="The label that means reject, when labels are not one of 0/1, "
+                    "accept/reject, pass/fail, go/no-go, good/bad, ok/ng, "
+                    "conforming/nonconforming.",
+                ),
+            ],
+            None,
+        ),
+        "accept_label": (
+            Annotated[
+                list[str] | None,
+                Col("--accept-label", help="With --reject-label: a label meaning accept (repeat)."),
+            ],
+            None,
+        ),
+        "drop_missing": (
+            Annotated[
+                bool, typer.Option("--drop-missing", help="Drop empty calls instead of refusing.")
+            ],
+            False,
+        ),
+        "sheet": (Annotated[str | None, Col("--sheet", help="Sheet of an XLSX workbook.")], None),
+        "wide_column": (
+            Annotated[
+                list[str] | None,
+                Col(
+                    "--wide-column",
+                    help="Wide layout with other column names: COLUMN=APPRAISER:TRIAL (repeat for "
+                    "every call column).",
+                ),
+            ],
+            None,
+        ),
     }
-    func.__annotations__.update(params)
-    return func
+    signature = inspect.signature(func, eval_str=True)
+    kept = [p for name, p in signature.parameters.items() if name != "options"]
+    added = [
+        inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, default=default, annotation=hint)
+        for name, (hint, default) in params.items()
+    ]
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        values = {name: kwargs.pop(name, default) for name, (_, default) in params.items()}
+        return func(*args, options=read_options(**values), **kwargs)
+
+    wrapper.__signature__ = signature.replace(parameters=kept + added)
+    return wrapper
 
 
 def _num(value, digits: int = 3) -> str:
@@ -332,29 +356,17 @@ def print_description(result: dict) -> None:
 
 
 @app.command()
-@data_options
 @handles_errors
+@data_options
 def describe(
     data: DataArg,
     as_json: Annotated[bool, typer.Option("--json", help="Print JSON instead of tables.")] = False,
     prob: Prob = DEFAULT_PROB,
-    layout="auto",
-    part_col=None,
-    appraiser_col=None,
-    trial_col=None,
-    call_col=None,
-    reference_col=None,
-    reference_value_col=None,
-    reject_label=None,
-    accept_label=None,
-    drop_missing=False,
-    sheet=None,
-    wide_column=None,
+    options: ReadOptions | None = None,
 ) -> None:
     """Validate a study file and show its design and classical statistics."""
     from bayes_rr.describe import describe_file
 
-    options = read_options(**data_kwargs(locals()))
     result = describe_file(data, options, prob)
     if as_json:
         sys.stdout.write(dumps(result) + "\n")
@@ -490,8 +502,8 @@ def run_fit(
 
 
 @app.command()
-@data_options
 @handles_errors
+@data_options
 def fit(
     data: DataArg,
     out_dir: Annotated[Path, typer.Option("--out", help="Folder for the results (new or empty).")],
@@ -518,25 +530,13 @@ def fit(
     overwrite: Annotated[
         bool, typer.Option("--overwrite", help="Replace a non-empty --out folder.")
     ] = False,
-    layout="auto",
-    part_col=None,
-    appraiser_col=None,
-    trial_col=None,
-    call_col=None,
-    reference_col=None,
-    reference_value_col=None,
-    reject_label=None,
-    accept_label=None,
-    drop_missing=False,
-    sheet=None,
-    wide_column=None,
+    options: ReadOptions | None = None,
 ) -> None:
     """Fit a Bayesian model to a study and write the results to a folder.
 
     Exits with code 3 (results written but marked not to be used) when the
     sampler did not pass the convergence gate.
     """
-    options = read_options(**data_kwargs(locals()))
     summary = run_fit(
         data,
         options,
