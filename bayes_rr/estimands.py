@@ -379,7 +379,8 @@ def integrated_cell_log_lik(
     for start in range(0, eta.shape[0], block):
         sl = slice(start, start + block)
         shifted = eta[sl][..., None] + sigma[sl, None, None] * u
-        terms = k[None, :, None] * log_expit(shifted) + (n - k)[None, :, None] * log_expit(-shifted)
+        # k log expit(x) + (n - k) log expit(-x), with log expit(-x) = log expit(x) - x
+        terms = n[None, :, None] * log_expit(shifted) - (n - k)[None, :, None] * shifted
         out[sl] = logsumexp(terms + log_w, axis=-1)
     return out + _log_binom_coef(n, k)
 
