@@ -16,7 +16,7 @@ import xarray as xr
 
 from bayes_rr.errors import SpecError
 from bayes_rr.family_table import SAMPLERS
-from bayes_rr.spec import ModelSpec
+from bayes_rr.spec import ModelSpec, SamplerDefaults
 
 R_HAT_MAX = 1.01
 ESS_MIN = 400
@@ -29,11 +29,12 @@ DIVERGENCE_SHARE_WARN = 0.001
 class SamplerSettings:
     """Settings of one sampling run."""
 
-    sampler: str = "nutpie"
-    draws: int = 1000
-    tune: int = 1000
-    chains: int = 4
-    target_accept: float = 0.95
+    # The spec's defaults are the one source of these five values.
+    sampler: str = SamplerDefaults.sampler
+    draws: int = SamplerDefaults.draws
+    tune: int = SamplerDefaults.tune
+    chains: int = SamplerDefaults.chains
+    target_accept: float = SamplerDefaults.target_accept
     seed: int = 20240601
     cores: int | None = None
     progress: bool = False
@@ -52,13 +53,7 @@ class SamplerSettings:
     @classmethod
     def from_spec(cls, spec: ModelSpec, **overrides) -> SamplerSettings:
         """Spec defaults, overridden by the given non-None values."""
-        base = cls(
-            sampler=spec.sampler.sampler,
-            draws=spec.sampler.draws,
-            tune=spec.sampler.tune,
-            chains=spec.sampler.chains,
-            target_accept=spec.sampler.target_accept,
-        )
+        base = cls(**asdict(spec.sampler))
         return replace(base, **{k: v for k, v in overrides.items() if v is not None})
 
     def as_dict(self) -> dict:
