@@ -26,20 +26,22 @@ def _split(x: np.ndarray) -> np.ndarray:
 
 def average_ranks(flat: np.ndarray) -> np.ndarray:
     """Ranks (1-based, ties averaged) of each column: ``scipy.stats.rankdata(method="average",
-    axis=0)`` with one argsort for all columns (rankdata along an axis is much slower)."""
+    axis=0)`` with one argsort for all columns (rankdata along an axis is much slower).
+
+    Draws of continuous quantities rarely tie, so ranks come from the inverse
+    permutation and only columns that do hold ties go through ``rankdata``.
+    """
+    from scipy.stats import rankdata
+
     rows = np.ascontiguousarray(np.asarray(flat, dtype=float).T)  # sort along contiguous rows
-    _k, size = rows.shape
-    order = np.argsort(rows, axis=1, kind="stable")
-    ordered = np.take_along_axis(rows, order, axis=1)
-    position = np.broadcast_to(np.arange(size), rows.shape)
-    new_group = np.ones(rows.shape, dtype=bool)
-    new_group[:, 1:] = ordered[:, 1:] != ordered[:, :-1]
-    last_in_group = np.ones(rows.shape, dtype=bool)
-    last_in_group[:, :-1] = new_group[:, 1:]
-    first = np.maximum.accumulate(np.where(new_group, position, 0), axis=1)
-    last = np.minimum.accumulate(np.where(last_in_group, position, size)[:, ::-1], axis=1)[:, ::-1]
+    size = rows.shape[1]
+    order = np.argsort(rows, axis=1)
     ranks = np.empty_like(rows)
-    np.put_along_axis(ranks, order, (first + last) / 2.0 + 1.0, axis=1)
+    np.put_along_axis(ranks, order, np.broadcast_to(np.arange(1.0, size + 1), rows.shape), axis=1)
+    ordered = np.take_along_axis(rows, order, axis=1)
+    tied = (ordered[:, 1:] == ordered[:, :-1]).any(axis=1)
+    if tied.any():
+        ranks[tied] = rankdata(rows[tied], method="average", axis=1)
     return ranks.T
 
 

@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 from scipy import stats
-from scipy.special import expit, gammaln, log_expit, logsumexp
+from scipy.special import expit, gammaln, log_expit
 
 from bayes_rr import DEFAULT_PROB
 from bayes_rr.data import StudyData
@@ -179,32 +179,44 @@ def decompose_population_logit(eta: np.ndarray, scale: np.ndarray) -> dict[str, 
 
 
 def split_reproducibility_logit(
-    eta: np.ndarray, sigma_appraiser: np.ndarray, sigma_interaction: np.ndarray
+    eta: np.ndarray,
+    sigma_appraiser: np.ndarray,
+    sigma_interaction: np.ndarray,
+    total: dict[str, np.ndarray] | None = None,
 ) -> dict[str, np.ndarray]:
     """V = Var_b(E[p | b]) + E_b[Var(p | b)] for logit p = eta + b + c, b ~ N(0, sigma_a^2),
-    c ~ N(0, sigma_c^2), by nested quadrature (outer over b, inner over c)."""
+    c ~ N(0, sigma_c^2).
+
+    With m(b) = E_c[p | b], the total moments M1 = E[p], M2 = E[p^2] over b + c ~
+    N(0, sigma_a^2 + sigma_c^2) give bias = E_b[m^2] - M1^2 and interaction =
+    M2 - E_b[m^2], so the two parts add up to the population V exactly and only
+    E_b[m^2] needs nested quadrature (outer over b, inner over c). ``total`` is the
+    output of :func:`decompose_population_logit` at the combined scale, when the
+    caller has it already.
+    """
+    from bayes_rr.kernels import nested_square_mean
+
     eta = np.asarray(eta, dtype=float)
     sigma_a = np.broadcast_to(np.asarray(sigma_appraiser, dtype=float), eta.shape[:1])
     sigma_c = np.broadcast_to(np.asarray(sigma_interaction, dtype=float), eta.shape[:1])
-    bias = np.empty_like(eta)
-    interaction = np.empty_like(eta)
-    shape = (-1,) + (1,) * (eta.ndim - 1)
-    rule_of_draw = _rule_index(sigma_a)
-    for index in np.unique(rule_of_draw):
-        draws = np.flatnonzero(rule_of_draw == index)
-        u, w = _rule_for_index(int(index), float(sigma_a[draws].max()))
-        # inner moments at every outer node: (nodes * draws, ...) in one call
-        shifted = eta[draws][None] + (
-            sigma_a[draws].reshape(shape)[None] * u.reshape((-1, 1) + (1,) * (eta.ndim - 1))
-        )
-        flat = shifted.reshape((-1, *eta.shape[1:]))
-        m1, m2 = logistic_normal_moments(flat, np.tile(sigma_c[draws], u.size))
-        m1 = m1.reshape(shifted.shape)
-        m2 = m2.reshape(shifted.shape)
-        mean = np.tensordot(w, m1, axes=1)
-        bias[draws] = np.tensordot(w, m1 * m1, axes=1) - mean * mean
-        interaction[draws] = np.tensordot(w, m2 - m1 * m1, axes=1)
-    return {"appraiser_bias_variance": bias, "interaction_variance": interaction}
+    if total is None:
+        total = decompose_population_logit(eta, np.sqrt(sigma_a**2 + sigma_c**2))
+    square_mean = np.empty(eta.shape)
+    # Group draws by the pair of rules their two scales need (a handful of groups).
+    outer_index, inner_index = _rule_index(sigma_a), _rule_index(sigma_c)
+    for pair in np.unique(np.stack([outer_index, inner_index], axis=1), axis=0):
+        draws = np.flatnonzero((outer_index == pair[0]) & (inner_index == pair[1]))
+        outer = _rule_for_index(int(pair[0]), float(sigma_a[draws].max()))
+        inner = _rule_for_index(int(pair[1]), float(sigma_c[draws].max()))
+        square_mean[draws] = nested_square_mean(
+            eta[draws].reshape(draws.size, -1), sigma_a[draws], sigma_c[draws], outer, inner
+        ).reshape(eta[draws].shape)
+    m1 = total["call_rate"]
+    m2 = m1 - total["repeatability_variance"]
+    return {
+        "appraiser_bias_variance": square_mean - m1 * m1,
+        "interaction_variance": m2 - square_mean,
+    }
 
 
 def decompose_population_beta(pi: np.ndarray, phi: np.ndarray) -> dict[str, np.ndarray]:
@@ -345,7 +357,7 @@ def latent_logit(posterior: xr.Dataset, study: StudyData, rng: np.random.Generat
     p = expit(eta)
     population = decompose_population_logit(eta_part, np.sqrt(sigma_b**2 + sigma_c**2))
     if "sigma_appraiser" in posterior and "sigma_interaction" in posterior:
-        population.update(split_reproducibility_logit(eta_part, sigma_b, sigma_c))
+        population.update(split_reproducibility_logit(eta_part, sigma_b, sigma_c, population))
     cells = study.cells
     part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
     n, k = cells["n"].to_numpy(), cells["s"].to_numpy()
@@ -369,19 +381,14 @@ def integrated_cell_log_lik(
     standard units): geometric convergence for this smooth integrand; checked
     against scipy.integrate.quad in the tests.
     """
+    from bayes_rr.kernels import log_integrated_binomial
+
     sigma = np.asarray(sigma, dtype=float)
     peak = 0.7 / (max(float(sigma.max()), 1e-9) * math.sqrt(max(int(n.max()), 1)))
     count = min(401, math.ceil(17 / min(0.5, peak)) + 1)
     u = np.linspace(-8.5, 8.5, count)
     log_w = -0.5 * u * u - 0.5 * math.log(2 * math.pi) + math.log(u[1] - u[0])
-    out = np.empty_like(eta, dtype=float)
-    block = max(1, MAX_BLOCK // max(1, eta.shape[1] * u.size))
-    for start in range(0, eta.shape[0], block):
-        sl = slice(start, start + block)
-        shifted = eta[sl][..., None] + sigma[sl, None, None] * u
-        # k log expit(x) + (n - k) log expit(-x), with log expit(-x) = log expit(x) - x
-        terms = n[None, :, None] * log_expit(shifted) - (n - k)[None, :, None] * shifted
-        out[sl] = logsumexp(terms + log_w, axis=-1)
+    out = log_integrated_binomial(eta, sigma, n, k, u, log_w)
     return out + _log_binom_coef(n, k)
 
 

@@ -45,8 +45,11 @@ def test_hdi_matches_arviz(chains):
 
 
 def test_average_ranks_match_scipy_rankdata():
-    data = np.round(np.random.default_rng(1).normal(size=(500, 9)), 1)
+    # Reference: scipy.stats.rankdata; columns without ties, with many ties, constant.
+    data = np.random.default_rng(1).normal(size=(500, 9))
+    data[:, 4:] = np.round(data[:, 4:], 1)
     data[:, 2] = 3.0
+    data[10, 0] = data[20, 0]  # a single tie in an otherwise continuous column
     expected = stats.rankdata(data, method="average", axis=0)
     np.testing.assert_array_equal(average_ranks(data), expected)
 

@@ -1,5 +1,7 @@
 """Estimand maths on hand-set draws (no MCMC), against scipy and exact identities."""
 
+import math
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -90,6 +92,47 @@ def test_split_against_monte_carlo():
     split = split_reproducibility_logit(eta, np.array([1.2]), np.array([0.7]))
     assert split["appraiser_bias_variance"][0, 0] == pytest.approx(bias_mc, rel=0.05)
     assert split["interaction_variance"][0, 0] == pytest.approx(inter_mc, rel=0.02)
+
+
+@pytest.mark.parametrize(
+    ("eta", "sa", "sc"), [(0.4, 1.2, 0.7), (-2.5, 0.3, 1.4), (1.0, 2.4, 0.05), (3.0, 4.5, 2.0)]
+)
+def test_split_against_nested_scipy_quad(eta, sa, sc):
+    # Reference: nested scipy.integrate.quad (inner, over c) inside quad_vec (outer, over b).
+    # m(b) = E_c[expit(eta + b + c)]: bias = Var_b(m(b)), interaction = E_b[Var_c(.)].
+    def normal_pdf(x, s):
+        return math.exp(-0.5 * (x / s) ** 2) / (s * math.sqrt(2 * math.pi))
+
+    def inner(b, power):
+        return integrate.quad(
+            lambda c: expit(eta + b + c) ** power * normal_pdf(c, sc),
+            -12 * sc, 12 * sc, epsabs=1e-13, limit=200,
+        )[0]  # fmt: skip
+
+    def outer_integrand(b):
+        m1, m2 = inner(b, 1), inner(b, 2)
+        return np.array([m1, m1 * m1, m2 - m1 * m1]) * normal_pdf(b, sa)
+
+    m_mean, m_square, interaction = integrate.quad_vec(
+        outer_integrand, -12 * sa, 12 * sa, epsabs=1e-12
+    )[0]
+    ours = split_reproducibility_logit(np.array([[eta]]), np.array([sa]), np.array([sc]))
+    assert ours["appraiser_bias_variance"][0, 0] == pytest.approx(m_square - m_mean**2, abs=2e-6)
+    assert ours["interaction_variance"][0, 0] == pytest.approx(interaction, abs=2e-6)
+
+
+def test_split_groups_draws_with_different_rules():
+    # Draws whose scales need different quadrature rules give the same values as
+    # each draw computed alone.
+    rng = np.random.default_rng(5)
+    eta = rng.normal(0, 2, (40, 3))
+    sa = np.concatenate([rng.uniform(0.05, 0.4, 20), rng.uniform(1.6, 6.5, 20)])
+    sc = rng.permutation(np.concatenate([rng.uniform(0.01, 0.2, 20), rng.uniform(1.1, 2.4, 20)]))
+    together = split_reproducibility_logit(eta, sa, sc)
+    for d in (0, 13, 27, 39):
+        alone = split_reproducibility_logit(eta[d : d + 1], sa[d : d + 1], sc[d : d + 1])
+        for key, values in alone.items():
+            np.testing.assert_allclose(together[key][d], values[0], atol=1e-6)
 
 
 def test_study_scope_identity_draw_by_draw():

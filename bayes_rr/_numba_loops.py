@@ -1,0 +1,49 @@
+"""The numba loops behind :mod:`bayes_rr.kernels` (imported on first use; cached on disk)."""
+
+import numba
+import numpy as np
+
+
+@numba.njit(cache=True, parallel=True)
+def nested_square_mean(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
+    # E_b[ E_c[expit(eta + b + c)]^2 ], b ~ N(0, outer^2), c ~ N(0, inner^2)
+    draws, parts = eta.shape
+    out = np.empty((draws, parts))
+    for s in numba.prange(draws):
+        sa = outer_scale[s]
+        sc = inner_scale[s]
+        for i in range(parts):
+            total = 0.0
+            for k in range(u_out.size):
+                x = eta[s, i] + sa * u_out[k]
+                m = 0.0
+                for j in range(u_in.size):
+                    m += w_in[j] / (1.0 + np.exp(-(x + sc * u_in[j])))
+                total += w_out[k] * m * m
+            out[s, i] = total
+    return out
+
+
+@numba.njit(cache=True, parallel=True)
+def log_integrated_binomial(eta, scale, n, k, u, log_w):
+    # log sum_l exp(log_w_l + k log expit(x_l) + (n - k) log expit(-x_l)),
+    # x_l = eta + scale * u_l, without the binomial coefficient
+    draws, cells = eta.shape
+    out = np.empty((draws, cells))
+    for s in numba.prange(draws):
+        for c in range(cells):
+            # streaming log-sum-exp: one pass, no scratch array
+            top = -np.inf
+            acc = 0.0
+            for j in range(u.size):
+                x = eta[s, c] + scale[s] * u[j]
+                # log expit(x) without overflow for either sign of x
+                log_p = -np.log1p(np.exp(-x)) if x > 0 else x - np.log1p(np.exp(x))
+                t = log_w[j] + n[c] * log_p - (n[c] - k[c]) * x
+                if t > top:
+                    acc = acc * np.exp(top - t) + 1.0
+                    top = t
+                else:
+                    acc += np.exp(t - top)
+            out[s, c] = top + np.log(acc)
+    return out

@@ -1,0 +1,72 @@
+"""Compiled inner loops of the estimands layer (numba, cached on disk).
+
+The nested quadrature of the reproducibility split and the integrated cell
+likelihood evaluate the logistic function some 10^8 times per fit. In numpy
+that means large temporaries and repeated passes over them; these loops fuse
+the work per (draw, part) or (draw, cell) and spread draws over the cores.
+numba comes with PyTensor (PyMC's backend), so it is no extra dependency; it
+is imported only when a kernel is first called, and the compiled code is
+cached (``cache=True``), so only the first fit on a machine pays the compile.
+
+Each kernel is a plain function of arrays; :mod:`bayes_rr.estimands` chooses the
+quadrature rules and checks the results against ``scipy.integrate.quad`` in the
+tests.
+"""
+
+from __future__ import annotations
+
+from functools import cache
+
+import numpy as np
+
+
+@cache
+def _compiled():
+    # numba and the compiled loops load on first use only
+    from bayes_rr import _numba_loops
+
+    return _numba_loops.nested_square_mean, _numba_loops.log_integrated_binomial
+
+
+def _f64(x) -> np.ndarray:
+    return np.ascontiguousarray(x, dtype=np.float64)
+
+
+def nested_square_mean(
+    eta: np.ndarray,
+    outer_scale: np.ndarray,
+    inner_scale: np.ndarray,
+    outer_rule: tuple[np.ndarray, np.ndarray],
+    inner_rule: tuple[np.ndarray, np.ndarray],
+) -> np.ndarray:
+    """E_b[(E_c[expit(eta + b + c)])^2] per (draw, part) with the given standard-normal rules.
+
+    ``eta`` (S, P); ``outer_scale``, ``inner_scale`` (S,); each rule is (nodes, weights)
+    for E[f(Z)], Z ~ N(0, 1).
+    """
+    kernel = _compiled()[0]
+    return kernel(
+        _f64(eta),
+        _f64(outer_scale),
+        _f64(inner_scale),
+        _f64(outer_rule[0]),
+        _f64(outer_rule[1]),
+        _f64(inner_rule[0]),
+        _f64(inner_rule[1]),
+    )
+
+
+def log_integrated_binomial(
+    eta: np.ndarray,
+    scale: np.ndarray,
+    n: np.ndarray,
+    k: np.ndarray,
+    nodes: np.ndarray,
+    log_weights: np.ndarray,
+) -> np.ndarray:
+    """log of sum_l w_l expit(x_l)^k (1 - expit(x_l))^(n - k), x_l = eta + scale * u_l.
+
+    ``eta`` (S, cell), ``scale`` (S,), ``n`` and ``k`` (cell,).
+    """
+    kernel = _compiled()[1]
+    return kernel(_f64(eta), _f64(scale), _f64(n), _f64(k), _f64(nodes), _f64(log_weights))
