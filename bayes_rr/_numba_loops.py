@@ -5,23 +5,28 @@ import numpy as np
 
 
 @numba.njit(cache=True, parallel=True)
-def nested_square_mean(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
-    # E_b[ E_c[expit(eta + b + c)]^2 ], b ~ N(0, outer^2), c ~ N(0, inner^2)
+def nested_moments(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
+    # E_b[m(b)] and E_b[m(b)^2] with m(b) = E_c[expit(eta + b + c)],
+    # b ~ N(0, outer^2), c ~ N(0, inner^2)
     draws, parts = eta.shape
-    out = np.empty((draws, parts))
+    mean = np.empty((draws, parts))
+    square = np.empty((draws, parts))
     for s in numba.prange(draws):
         sa = outer_scale[s]
         sc = inner_scale[s]
         for i in range(parts):
-            total = 0.0
+            first = 0.0
+            second = 0.0
             for k in range(u_out.size):
                 x = eta[s, i] + sa * u_out[k]
                 m = 0.0
                 for j in range(u_in.size):
                     m += w_in[j] / (1.0 + np.exp(-(x + sc * u_in[j])))
-                total += w_out[k] * m * m
-            out[s, i] = total
-    return out
+                first += w_out[k] * m
+                second += w_out[k] * m * m
+            mean[s, i] = first
+            square[s, i] = second
+    return mean, square
 
 
 @numba.njit(cache=True, parallel=True)

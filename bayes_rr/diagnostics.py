@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy import fft as sp_fft
 from scipy.fft import next_fast_len
 from scipy.special import ndtri
 
@@ -24,12 +25,17 @@ def _split(x: np.ndarray) -> np.ndarray:
     return np.concatenate([x[:, :half], x[:, -half:]], axis=0)
 
 
+MAX_TIE_RUNS = 64
+"""Columns with more tied runs than this are ranked by ``scipy.stats.rankdata``."""
+
+
 def average_ranks(flat: np.ndarray) -> np.ndarray:
     """Ranks (1-based, ties averaged) of each column: ``scipy.stats.rankdata(method="average",
     axis=0)`` with one argsort for all columns (rankdata along an axis is much slower).
 
-    Draws of continuous quantities rarely tie, so ranks come from the inverse
-    permutation and only columns that do hold ties go through ``rankdata``.
+    Ranks come from the inverse permutation; tied runs are then averaged one by
+    one. Draws of continuous quantities rarely tie, but folding about the median
+    ties the two middle draws of every column, so the few-runs case must be cheap.
     """
     from scipy.stats import rankdata
 
@@ -39,9 +45,18 @@ def average_ranks(flat: np.ndarray) -> np.ndarray:
     ranks = np.empty_like(rows)
     np.put_along_axis(ranks, order, np.broadcast_to(np.arange(1.0, size + 1), rows.shape), axis=1)
     ordered = np.take_along_axis(rows, order, axis=1)
-    tied = (ordered[:, 1:] == ordered[:, :-1]).any(axis=1)
-    if tied.any():
-        ranks[tied] = rankdata(rows[tied], method="average", axis=1)
+    equal_next = ordered[:, 1:] == ordered[:, :-1]
+    for row in np.flatnonzero(equal_next.any(axis=1)):
+        positions = np.flatnonzero(equal_next[row])
+        # a run of ties spans positions start..end+1 in sorted order
+        breaks = np.flatnonzero(np.diff(positions) > 1)
+        starts = positions[np.r_[0, breaks + 1]]
+        ends = positions[np.r_[breaks, positions.size - 1]]
+        if starts.size > MAX_TIE_RUNS:
+            ranks[row] = rankdata(rows[row], method="average")
+            continue
+        for start, end in zip(starts, ends, strict=True):
+            ranks[row, order[row, start : end + 2]] = (start + end + 1) / 2 + 1
     return ranks.T
 
 
@@ -73,9 +88,12 @@ def rhat(x: np.ndarray) -> np.ndarray:
 def _autocov(x: np.ndarray) -> np.ndarray:
     n = x.shape[1]
     size = next_fast_len(2 * n)
-    centred = x - x.mean(axis=1, keepdims=True)
-    spectrum = np.fft.rfft(centred, n=size, axis=1)
-    return np.fft.irfft(spectrum * np.conjugate(spectrum), n=size, axis=1)[:, :n] / n
+    # transforms along the last, contiguous axis, on every core
+    centred = np.ascontiguousarray(np.moveaxis(x - x.mean(axis=1, keepdims=True), 1, -1))
+    spectrum = sp_fft.rfft(centred, n=size, axis=-1, workers=-1)
+    power = spectrum.real**2 + spectrum.imag**2
+    acov = sp_fft.irfft(power, n=size, axis=-1, workers=-1)[..., :n] / n
+    return np.moveaxis(acov, -1, 1)
 
 
 def _ess(x: np.ndarray) -> np.ndarray:

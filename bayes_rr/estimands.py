@@ -187,35 +187,34 @@ def split_reproducibility_logit(
     """V = Var_b(E[p | b]) + E_b[Var(p | b)] for logit p = eta + b + c, b ~ N(0, sigma_a^2),
     c ~ N(0, sigma_c^2).
 
-    With m(b) = E_c[p | b], the total moments M1 = E[p], M2 = E[p^2] over b + c ~
-    N(0, sigma_a^2 + sigma_c^2) give bias = E_b[m^2] - M1^2 and interaction =
-    M2 - E_b[m^2], so the two parts add up to the population V exactly and only
-    E_b[m^2] needs nested quadrature (outer over b, inner over c). ``total`` is the
-    output of :func:`decompose_population_logit` at the combined scale, when the
-    caller has it already.
+    With m(b) = E_c[p | b], bias = E_b[m^2] - E_b[m]^2 by nested quadrature (outer
+    over b, inner over c; a weighted variance, so not negative beyond rounding), and
+    interaction = V - bias with V the population reproducibility at the combined
+    scale sqrt(sigma_a^2 + sigma_c^2), so the two parts add up to V exactly.
+    ``total`` is the output of :func:`decompose_population_logit` at that scale,
+    when the caller has it already.
     """
-    from bayes_rr.kernels import nested_square_mean
+    from bayes_rr.kernels import nested_moments
 
     eta = np.asarray(eta, dtype=float)
     sigma_a = np.broadcast_to(np.asarray(sigma_appraiser, dtype=float), eta.shape[:1])
     sigma_c = np.broadcast_to(np.asarray(sigma_interaction, dtype=float), eta.shape[:1])
     if total is None:
         total = decompose_population_logit(eta, np.sqrt(sigma_a**2 + sigma_c**2))
-    square_mean = np.empty(eta.shape)
+    bias = np.empty(eta.shape)
     # Group draws by the pair of rules their two scales need (a handful of groups).
     outer_index, inner_index = _rule_index(sigma_a), _rule_index(sigma_c)
     for pair in np.unique(np.stack([outer_index, inner_index], axis=1), axis=0):
         draws = np.flatnonzero((outer_index == pair[0]) & (inner_index == pair[1]))
         outer = _rule_for_index(int(pair[0]), float(sigma_a[draws].max()))
         inner = _rule_for_index(int(pair[1]), float(sigma_c[draws].max()))
-        square_mean[draws] = nested_square_mean(
+        mean, square = nested_moments(
             eta[draws].reshape(draws.size, -1), sigma_a[draws], sigma_c[draws], outer, inner
-        ).reshape(eta[draws].shape)
-    m1 = total["call_rate"]
-    m2 = m1 - total["repeatability_variance"]
+        )
+        bias[draws] = (square - mean * mean).reshape(eta[draws].shape)
     return {
-        "appraiser_bias_variance": square_mean - m1 * m1,
-        "interaction_variance": m2 - square_mean,
+        "appraiser_bias_variance": bias,
+        "interaction_variance": total["reproducibility_variance"] - bias,
     }
 
 

@@ -25,21 +25,22 @@ def _compiled():
     # numba and the compiled loops load on first use only
     from bayes_rr import _numba_loops
 
-    return _numba_loops.nested_square_mean, _numba_loops.log_integrated_binomial
+    return _numba_loops.nested_moments, _numba_loops.log_integrated_binomial
 
 
 def _f64(x) -> np.ndarray:
     return np.ascontiguousarray(x, dtype=np.float64)
 
 
-def nested_square_mean(
+def nested_moments(
     eta: np.ndarray,
     outer_scale: np.ndarray,
     inner_scale: np.ndarray,
     outer_rule: tuple[np.ndarray, np.ndarray],
     inner_rule: tuple[np.ndarray, np.ndarray],
-) -> np.ndarray:
-    """E_b[(E_c[expit(eta + b + c)])^2] per (draw, part) with the given standard-normal rules.
+) -> tuple[np.ndarray, np.ndarray]:
+    """E_b[m(b)] and E_b[m(b)^2], m(b) = E_c[expit(eta + b + c)], per (draw, part), with the
+    given standard-normal rules (outer over b, inner over c).
 
     ``eta`` (S, P); ``outer_scale``, ``inner_scale`` (S,); each rule is (nodes, weights)
     for E[f(Z)], Z ~ N(0, 1).

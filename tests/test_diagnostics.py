@@ -50,6 +50,8 @@ def test_average_ranks_match_scipy_rankdata():
     data[:, 4:] = np.round(data[:, 4:], 1)
     data[:, 2] = 3.0
     data[10, 0] = data[20, 0]  # a single tie in an otherwise continuous column
+    data[:, 1] = np.abs(data[:, 1] - np.median(data[:, 1]))  # folded: the middle two tie
+    data[:, 3] = np.arange(500) % 200  # 200 tied runs: the rankdata path
     expected = stats.rankdata(data, method="average", axis=0)
     np.testing.assert_array_equal(average_ranks(data), expected)
 

@@ -30,6 +30,8 @@ import warnings
 import numpy as np
 
 CASES = {"typical": (60, 3, 3), "large": (1000, 8, 3)}
+# Draws a chain for our run (None: the spec's default).
+DRAWS = {"typical": None, "large": None}
 HYPER = ("intercept", "sigma_part", "sigma_appraiser", "sigma_interaction")
 
 
@@ -58,7 +60,7 @@ def _min_ess(posterior, study, spec) -> float:
     return min(values)
 
 
-def run_ours(study, spec_text=None):
+def run_ours(study, spec_text=None, draws=None):
     from bayes_rr.families import build_model
     from bayes_rr.sampling import SamplerSettings, sample_model
     from bayes_rr.spec import load_spec, parse_spec
@@ -66,7 +68,7 @@ def run_ours(study, spec_text=None):
     spec = parse_spec(spec_text, "variant") if spec_text else load_spec("crossed-logit")
     start = time.perf_counter()
     model = build_model(spec, study)
-    run = sample_model(model, SamplerSettings.from_spec(spec, seed=1))
+    run = sample_model(model, SamplerSettings.from_spec(spec, seed=1, draws=draws))
     wall = time.perf_counter() - start
     posterior = run.idata.posterior
     return wall, _min_ess(posterior, study, spec), run.timings
@@ -128,7 +130,7 @@ def main(argv=None) -> int:
         study = _simulate(*CASES[name])
         ours, base = [], []
         for _ in range(args.repeats):
-            wall, ess, timings = run_ours(study)
+            wall, ess, timings = run_ours(study, draws=DRAWS[name])
             ours.append(_figures(wall, ess) | {"timings": timings})
             if not args.no_baseline:
                 base.append(_figures(*run_baseline(study)))
