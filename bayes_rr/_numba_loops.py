@@ -1,10 +1,13 @@
-"""The numba loops behind :mod:`bayes_rr.kernels` (imported on first use; cached on disk)."""
+"""The loops behind :mod:`bayes_rr.kernels`, as plain functions that it compiles with numba.
+
+``numba.prange`` runs as ``range`` in plain Python, so the functions also run (slowly)
+without compilation.
+"""
 
 import numba
 import numpy as np
 
 
-@numba.njit(cache=True, parallel=True)
 def nested_moments(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
     # E_b[m(b)] and E_b[m(b)^2] with m(b) = E_c[expit(eta + b + c)],
     # b ~ N(0, outer^2), c ~ N(0, inner^2)
@@ -29,7 +32,6 @@ def nested_moments(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
     return mean, square
 
 
-@numba.njit(cache=True, parallel=True)
 def log_integrated_binomial(eta, scale, n, k, u, log_w):
     # log sum_l exp(log_w_l + k log expit(x_l) + (n - k) log expit(-x_l)),
     # x_l = eta + scale * u_l, without the binomial coefficient

@@ -560,22 +560,29 @@ def fit(
         raise typer.Exit(3)
 
 
+def _short_number(x: float) -> str:
+    """Counts as integers, other values to three significant digits."""
+    return str(int(x)) if float(x).is_integer() else f"{x:.3g}"
+
+
 def print_checks(document: dict) -> None:
     ppc = document["posterior_predictive"]
     table = Table(
-        title=f"Posterior predictive check ({ppc['draws']} replicated studies; "
-        f"flag when {ppc['flag_when']})"
+        title=f"Posterior predictive check ({ppc['draws']} replicated studies)",
+        caption=f"* flagged: {ppc['flag_when']}",
     )
-    for col in ("statistic", "observed", "replicated mean (95% range)", "p", ""):
-        table.add_column(col)
+    # the statistic's name (an appraiser's in brackets) must stay readable at 80 columns
+    table.add_column("statistic", no_wrap=True, min_width=24)
+    table.add_column("observed", no_wrap=True)
+    table.add_column("replicated mean (95%)", no_wrap=True)
+    table.add_column("p", no_wrap=True)
     for stat in ppc["statistics"]:
         table.add_row(
             stat["name"],
-            f"{stat['observed']:.3f}",
-            f"{stat['replicated_mean']:.3f} ({stat['replicated_lower']:.3f}-"
-            f"{stat['replicated_upper']:.3f})",
-            f"{stat['p_value']:.3f}",
-            "FLAG" if stat["flagged"] else "",
+            _short_number(stat["observed"]),
+            f"{_short_number(stat['replicated_mean'])} ({_short_number(stat['replicated_lower'])}"
+            f"-{_short_number(stat['replicated_upper'])})",
+            f"{stat['p_value']:.3f}" + (" *" if stat["flagged"] else ""),
         )
     out.print(table)
     flagged = ppc["flagged"]

@@ -20,12 +20,23 @@ from functools import cache
 import numpy as np
 
 
+def _jit(function, *, cache_on_disk: bool = True):
+    import numba
+
+    try:
+        return numba.njit(cache=cache_on_disk, parallel=True)(function)
+    except RuntimeError:
+        # numba found no writable place for its cache (a read-only install and
+        # home folder): compile in memory on every run instead of failing.
+        return numba.njit(cache=False, parallel=True)(function)
+
+
 @cache
 def _compiled():
     # numba and the compiled loops load on first use only
     from bayes_rr import _numba_loops
 
-    return _numba_loops.nested_moments, _numba_loops.log_integrated_binomial
+    return _jit(_numba_loops.nested_moments), _jit(_numba_loops.log_integrated_binomial)
 
 
 def _f64(x) -> np.ndarray:

@@ -294,3 +294,17 @@ def test_compiled_kernels_match_plain_numpy():
     mean, square = nested_moments(eta, scale, inner, (u, w), (u, w))
     np.testing.assert_allclose(mean, m @ w, rtol=1e-12)
     np.testing.assert_allclose(square, (m * m) @ w, rtol=1e-12)
+
+
+def test_kernels_compile_without_a_disk_cache():
+    # A function numba cannot cache (no source file, like a read-only install with no
+    # writable cache folder) is compiled in memory instead of raising.
+    import numba
+
+    from bayes_rr.kernels import _jit
+
+    namespace = {}
+    exec("def add_one(x):\n    return x + 1.0\n", namespace)
+    with pytest.raises(RuntimeError, match="cannot cache"):
+        numba.njit(cache=True)(namespace["add_one"])
+    assert _jit(namespace["add_one"])(1.0) == 2.0
