@@ -9,27 +9,34 @@ import numpy as np
 
 
 def nested_moments(eta, outer_scale, inner_scale, u_out, w_out, u_in, w_in):
-    # E_b[m(b)] and E_b[m(b)^2] with m(b) = E_c[expit(eta + b + c)],
-    # b ~ N(0, outer^2), c ~ N(0, inner^2)
+    # With m1(b) = E_c[p], m2(b) = E_c[p^2], p = expit(eta + b + c), b ~ N(0, outer^2),
+    # c ~ N(0, inner^2): E_b[m1], E_b[m1^2] and E_b[m2 - m1^2]
     draws, parts = eta.shape
     mean = np.empty((draws, parts))
     square = np.empty((draws, parts))
+    spread = np.empty((draws, parts))
     for s in numba.prange(draws):
         sa = outer_scale[s]
         sc = inner_scale[s]
         for i in range(parts):
             first = 0.0
             second = 0.0
+            inner_var = 0.0
             for k in range(u_out.size):
                 x = eta[s, i] + sa * u_out[k]
-                m = 0.0
+                m1 = 0.0
+                m2 = 0.0
                 for j in range(u_in.size):
-                    m += w_in[j] / (1.0 + np.exp(-(x + sc * u_in[j])))
-                first += w_out[k] * m
-                second += w_out[k] * m * m
+                    p = 1.0 / (1.0 + np.exp(-(x + sc * u_in[j])))
+                    m1 += w_in[j] * p
+                    m2 += w_in[j] * p * p
+                first += w_out[k] * m1
+                second += w_out[k] * m1 * m1
+                inner_var += w_out[k] * (m2 - m1 * m1)
             mean[s, i] = first
             square[s, i] = second
-    return mean, square
+            spread[s, i] = inner_var
+    return mean, square, spread
 
 
 def log_integrated_binomial(eta, scale, n, k, u, log_w):

@@ -49,9 +49,10 @@ def nested_moments(
     inner_scale: np.ndarray,
     outer_rule: tuple[np.ndarray, np.ndarray],
     inner_rule: tuple[np.ndarray, np.ndarray],
-) -> tuple[np.ndarray, np.ndarray]:
-    """E_b[m(b)] and E_b[m(b)^2], m(b) = E_c[expit(eta + b + c)], per (draw, part), with the
-    given standard-normal rules (outer over b, inner over c).
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """E_b[m1], E_b[m1^2] and E_b[m2 - m1^2] per (draw, part), with m1(b) = E_c[p] and
+    m2(b) = E_c[p^2] for p = expit(eta + b + c), by the given standard-normal rules
+    (outer over b, inner over c).
 
     ``eta`` (S, P); ``outer_scale``, ``inner_scale`` (S,); each rule is (nodes, weights)
     for E[f(Z)], Z ~ N(0, 1).
