@@ -49,7 +49,7 @@ def main() -> None:
         part=calls["part"].str.replace("P", "T-", regex=False),
         call=np.where(calls["call"] == 1, "fail", "pass"),
         reference=np.where(calls["part"].map(reference) == 1, "fail", "pass"),
-    ).rename(columns={"appraiser": "appraiser"})
+    )
     table = table.sample(frac=1.0, random_state=3)  # the order calls were made in
     text = HEADER + table[["part", "appraiser", "trial", "call", "reference"]].to_csv(index=False)
     root = Path(__file__).resolve().parent.parent
