@@ -24,7 +24,8 @@ HEADER = """\
 """
 
 
-def main() -> None:
+def demo_text() -> str:
+    """The demo study as CSV text (header comment included)."""
     sim = simulate_crossed_logit(
         n_parts=45,
         n_appraisers=3,
@@ -51,7 +52,11 @@ def main() -> None:
         reference=np.where(calls["part"].map(reference) == 1, "fail", "pass"),
     )
     table = table.sample(frac=1.0, random_state=3)  # the order calls were made in
-    text = HEADER + table[["part", "appraiser", "trial", "call", "reference"]].to_csv(index=False)
+    return HEADER + table[["part", "appraiser", "trial", "call", "reference"]].to_csv(index=False)
+
+
+def main() -> None:
+    text = demo_text()
     root = Path(__file__).resolve().parent.parent
     for target in (
         root / "examples" / "demo_study.csv",
