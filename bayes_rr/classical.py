@@ -26,6 +26,24 @@ from bayes_rr.intervals import (
 )
 
 PER_PART_KEYS = ("call_rate", "rr_variance", "repeatability_variance", "reproducibility_variance")
+MAX_PAIRWISE_APPRAISERS = 12
+"""Pairwise statistics (Cohen's kappa and call-rate differences of every pair) are listed
+up to this many appraisers (66 pairs). Their number grows with the square of the
+appraisers: 1000 appraisers would give half a million rows that nobody reads and
+minutes of computing; beyond the limit they are listed as not computed, with the reason."""
+
+
+def pairwise_limit_note(study: StudyData, statistic: str) -> dict | None:
+    """The not-computed entry for a pairwise statistic when there are too many appraisers."""
+    count = len(study.appraisers)
+    if count <= MAX_PAIRWISE_APPRAISERS:
+        return None
+    pairs = count * (count - 1) // 2
+    return {
+        "statistic": statistic,
+        "reason": f"{count} appraisers make {pairs:,} pairs; pairwise statistics are listed "
+        f"up to {MAX_PAIRWISE_APPRAISERS} appraisers (analyse a subset of appraisers for them)",
+    }
 
 
 def _finite_or_none(value: float) -> float | None:
@@ -59,8 +77,12 @@ class MomentEstimates:
         }
 
 
-def _study_summary(per_part: pd.DataFrame) -> tuple[dict, list[str]]:
-    """Averages over parts; the share is a ratio of averages (estimands.md)."""
+def _study_summary(per_part: pd.DataFrame, single_appraiser: bool) -> tuple[dict, list[str]]:
+    """Averages over parts; the share is a ratio of averages (estimands.md).
+
+    With a single appraiser reproducibility is not estimable (zero by construction):
+    it is left out (None), never shown as a number.
+    """
     flags: list[str] = []
     usable = per_part.dropna(subset=["repeatability_variance"])
     mean_t = float(usable["rr_variance"].mean()) if len(usable) else math.nan
@@ -79,16 +101,23 @@ def _study_summary(per_part: pd.DataFrame) -> tuple[dict, list[str]]:
     study["reproducibility_share"] = mean_v / mean_t if np.isfinite(mean_t) and mean_t > 0 else None
     study["repeatability_share"] = mean_r / mean_t if np.isfinite(mean_t) and mean_t > 0 else None
     study["repeat_disagreement"] = 2 * mean_r if np.isfinite(mean_r) else None
+    if single_appraiser:
+        for key in ("reproducibility_variance", "reproducibility_sd", "reproducibility_share",
+                    "repeatability_share"):  # fmt: skip
+            study[key] = None
+        flags = [f for f in flags if "reproducibility" not in f]
     return study, flags
 
 
 def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates]:
-    """Plug-in and within-cell corrected moment estimates.
+    """Plug-in and bias-corrected moment estimates (estimands.md, classical statistics).
 
-    Plug-in: p_ij replaced by s_ij / n_ij in the study-scope formulas, so
-    T_i = R_i + V_i holds exactly. Corrected: R_i uses n/(n-1) p(1-p) in cells
-    with n >= 2 (which removes the plug-in bias of the repeatability term) and
-    V_i = T_i - R_i; a negative V_i is kept as it is and flagged.
+    Plug-in: p_ij replaced by q_ij = s_ij / n_ij in the study-scope formulas, so
+    T_i = R_i + V_i holds exactly. Corrected: R_i = mean_j q(1-q) n/(n-1) over cells
+    with n >= 2, and T_i = T_i,plug + (1/J_i^2) sum_j q(1-q)/(n-1), which removes the
+    plug-in T's bias of -(1/J_i^2) sum_j p(1-p)/n (correcting R alone would leave that
+    whole bias in V); V_i = T_i - R_i, kept as it is and flagged when negative. A cell
+    with one call cannot be corrected: its term is left out, and a flag says so.
     """
     cells = study.cells
     p = cells["s"] / cells["n"]
@@ -100,21 +129,23 @@ def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates
             "pq_corrected": np.where(
                 cells["n"] >= 2, p * (1 - p) * cells["n"] / (cells["n"] - 1).clip(lower=1), np.nan
             ),
+            "t_term": np.where(cells["n"] >= 2, p * (1 - p) / (cells["n"] - 1).clip(lower=1), 0.0),
         }
     )
     grouped = frame.groupby("part", sort=False)
     call_rate = grouped["p"].mean()
     rr = call_rate * (1 - call_rate)
+    rr_corr = rr + grouped["t_term"].sum() / grouped.size() ** 2
     r_plug = grouped["pq"].mean()
     r_corr = grouped["pq_corrected"].mean()  # NaN where no cell has two calls
     order = list(study.parts)
 
-    def table(r: pd.Series) -> pd.DataFrame:
+    def table(r: pd.Series, t: pd.Series) -> pd.DataFrame:
         out = pd.DataFrame(
             {
                 "part": order,
                 "call_rate": call_rate.reindex(order).to_numpy(),
-                "rr_variance": rr.reindex(order).to_numpy(),
+                "rr_variance": t.reindex(order).to_numpy(),
                 "repeatability_variance": r.reindex(order).to_numpy(),
             }
         )
@@ -126,10 +157,11 @@ def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates
         out["repeat_disagreement"] = 2 * out["repeatability_variance"]
         return out
 
-    plug = table(r_plug)
-    corr = table(r_corr)
-    plug_study, plug_flags = _study_summary(plug)
-    corr_study, corr_flags = _study_summary(corr)
+    plug = table(r_plug, rr)
+    corr = table(r_corr, rr_corr)
+    single = len(study.appraisers) < 2
+    plug_study, plug_flags = _study_summary(plug, single)
+    corr_study, corr_flags = _study_summary(corr, single)
     negative = corr.loc[corr["reproducibility_variance"] < -1e-15, "part"].tolist()
     if negative:
         corr_flags.insert(
@@ -137,6 +169,12 @@ def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates
             f"corrected reproducibility variance is negative on {len(negative)} part(s) "
             f"({', '.join(negative[:6])}{'...' if len(negative) > 6 else ''}); shown as is, "
             "not clipped (sampling noise around a small true value)",
+        )
+    single_call_cells = int((cells["n"] < 2).sum())
+    if single_call_cells and single_call_cells < len(cells):
+        corr_flags.append(
+            f"{single_call_cells} cell(s) have one call and cannot be corrected: their "
+            "correction terms are left out"
         )
     no_repeat = corr.loc[corr["repeatability_variance"].isna(), "part"].tolist()
     if no_repeat:
@@ -154,7 +192,8 @@ def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates
         ),
         MomentEstimates(
             "corrected",
-            "moment estimates with the within-cell correction n/(n-1) on p(1-p)",
+            "bias-corrected moment estimates: n/(n-1) on each cell's p(1-p) for "
+            "repeatability, and the matching correction of the total T",
             corr,
             corr_study,
             tuple(corr_flags),
@@ -197,9 +236,13 @@ def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreem
     calls = study.calls
     out: list[Agreement] = []
     skipped: list[dict] = []
+    repeated = study.cells[study.cells["n"] >= 2]
+    own = ((repeated["s"] == 0) | (repeated["s"] == repeated["n"])).to_numpy()
+    # One pass over the cells, not one mask per appraiser (studies may have hundreds).
+    own_by_appraiser = pd.Series(own).groupby(repeated["appraiser"].to_numpy(), sort=False)
+    own_agreed = {a: g.to_numpy() for a, g in own_by_appraiser}
     for appraiser in study.appraisers:
-        cells = study.cells[(study.cells["appraiser"] == appraiser) & (study.cells["n"] >= 2)]
-        if cells.empty:
+        if appraiser not in own_agreed:
             skipped.append(
                 {
                     "statistic": f"own-trials agreement ({appraiser})",
@@ -207,8 +250,7 @@ def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreem
                 }
             )
             continue
-        agreed = ((cells["s"] == 0) | (cells["s"] == cells["n"])).to_numpy()
-        out.append(_agreement("own_trials", appraiser, agreed, prob))
+        out.append(_agreement("own_trials", appraiser, own_agreed[appraiser], prob))
     per_part = study.cells.groupby("part", sort=False).agg(
         n=("n", "sum"), s=("s", "sum"), appraisers=("appraiser", "size")
     )
@@ -226,10 +268,10 @@ def agreement(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[Agreem
     if study.reference is not None:
         ref = calls["part"].map(study.reference).to_numpy()
         matches = calls.assign(match=(calls["call"].to_numpy() == ref))
+        per_cell = matches.groupby(["appraiser", "part"], sort=False)["match"].all()
+        mine = {a: g.to_numpy() for a, g in per_cell.groupby(level="appraiser", sort=False)}
         for appraiser in study.appraisers:
-            mine = matches[matches["appraiser"] == appraiser]
-            agreed = mine.groupby("part")["match"].all().to_numpy()
-            out.append(_agreement("appraiser_vs_reference", appraiser, agreed, prob))
+            out.append(_agreement("appraiser_vs_reference", appraiser, mine[appraiser], prob))
         agreed = matches.groupby("part")["match"].all().to_numpy()
         out.append(_agreement("all_vs_reference", None, agreed, prob))
     return out, skipped
@@ -439,8 +481,9 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
             skipped.append({"statistic": label, "reason": str(exc)})
 
     cells = study.cells
+    by_appraiser = dict(tuple(cells.groupby("appraiser", sort=False)))
     for appraiser in study.appraisers:
-        mine = cells[cells["appraiser"] == appraiser]
+        mine = by_appraiser[appraiser]
         attempt(
             f"Fleiss' kappa of own trials ({appraiser})",
             lambda mine=mine, appraiser=appraiser: KappaRow(
@@ -485,6 +528,10 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
                     "subjects: calls; ratings: the call and the reference status",
                 ),
             )
+    too_many = pairwise_limit_note(study, "Cohen's kappa of each pair of appraisers")
+    if too_many:
+        skipped.append(too_many)
+        return rows, skipped
     wide = study.calls.pivot_table(
         index=["part", "trial"], columns="appraiser", values="call", aggfunc="first"
     )
@@ -552,8 +599,11 @@ class AppraiserDifference:
 def appraiser_differences(
     study: StudyData, prob: float = DEFAULT_PROB
 ) -> list[AppraiserDifference]:
-    """Newcombe hybrid score and Agresti-Caffo intervals for p_j - p_j'."""
-    out = []
+    """Newcombe hybrid score and Agresti-Caffo intervals for p_j - p_j' (for up to
+    :data:`MAX_PAIRWISE_APPRAISERS` appraisers)."""
+    out: list[AppraiserDifference] = []
+    if pairwise_limit_note(study, "") is not None:
+        return out
     cells = study.cells
     for a, b in itertools.combinations(study.appraisers, 2):
         ca = cells[cells["appraiser"] == a].set_index("part")
@@ -627,6 +677,9 @@ def classical_statistics(study: StudyData, prob: float = DEFAULT_PROB) -> Classi
             },
         )
         skipped.append({"statistic": "appraiser differences", "reason": "needs two appraisers"})
+    too_many = pairwise_limit_note(study, "differences of call rates of each pair of appraisers")
+    if too_many:
+        skipped.append(too_many)
     if int(study.cells["n"].max()) < 2:
         skipped.insert(
             0,

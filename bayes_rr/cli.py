@@ -3,14 +3,16 @@
 Every command calls library functions that a notebook user can call too;
 this module only parses options, prints and chooses exit codes:
 0 success, 2 bad input (data, spec, options, output folder), 3 the sampler
-did not pass the convergence gate.
+did not pass the convergence gate, 130 interrupted (Ctrl-C or SIGTERM; nothing
+is written). Every failure is one line on stderr; user strings are printed
+literally (the consoles interpret no markup).
 """
 
 from __future__ import annotations
 
 import functools
 import inspect
-import json
+import os
 import sys
 from pathlib import Path
 from typing import Annotated
@@ -19,10 +21,11 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from bayes_rr import DEFAULT_PROB, __version__
+from bayes_rr import DEFAULT_PROB, __version__, interrupts
 from bayes_rr.data import ReadOptions
 from bayes_rr.errors import BayesRRError, DataError
-from bayes_rr.jsonio import dumps
+from bayes_rr.jsonio import dumps, write_bytes_atomic
+from bayes_rr.sampling import MAX_CHAINS, MAX_DRAWS
 
 app = typer.Typer(
     name="bayes-rr",
@@ -34,24 +37,59 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-out = Console()
-err = Console(stderr=True)
+# No markup: a name such as "[/]" in a study must print as it is, not as a style tag.
+out = Console(markup=False, highlight=False)
+err = Console(stderr=True, markup=False, highlight=False)
+DEBUG_ENV = "BAYES_RR_DEBUG"
+INTERRUPTED = "interrupted; nothing was written"
 
 
-def _fail(exc: BayesRRError) -> None:
-    err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False, soft_wrap=True)
-    raise typer.Exit(exc.exit_code)
+def _one_line(prefix: str, message: object, code: int) -> typer.Exit:
+    text = " ".join(str(message).split())
+    err.print(f"{prefix}: {text}", style="bold red" if code != 130 else None, soft_wrap=True)
+    return typer.Exit(code)
+
+
+def _phase_line(text: str) -> None:
+    err.print(text, style="dim", soft_wrap=True)
 
 
 def handles_errors(func):
-    """Turn the toolkit's typed errors into one line on stderr and an exit code."""
+    """Run a command under the interrupt guard; every failure becomes one line on stderr.
+
+    Typed errors keep their exit code; Ctrl-C or SIGTERM exits 130 with nothing
+    written; anything unexpected is reported in one line as an internal error (set
+    BAYES_RR_DEBUG=1 for the traceback).
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        quiet = bool(kwargs.get("quiet")) or kwargs.get("as_json") is True
         try:
-            return func(*args, **kwargs)
+            with interrupts.guard(_phase_line if _in_terminal(quiet) else None):
+                result = func(*args, **kwargs)
+                interrupts.raise_if_interrupted()
+                return result
+        except typer.Exit:
+            raise
         except BayesRRError as exc:
-            _fail(exc)
+            raise _one_line("error", exc, exc.exit_code) from None
+        except interrupts.LateInterrupt as exc:
+            err.print(f"interrupted after the results were complete; they are in {exc.args[0]}",
+                      soft_wrap=True)  # fmt: skip
+            raise typer.Exit(interrupts.INTERRUPT_EXIT_CODE) from None
+        except KeyboardInterrupt:
+            err.print(INTERRUPTED, soft_wrap=True)
+            raise typer.Exit(interrupts.INTERRUPT_EXIT_CODE) from None
+        except Exception as exc:
+            if os.environ.get(DEBUG_ENV):
+                raise
+            raise _one_line(
+                "internal error",
+                f"{type(exc).__name__}: {exc} (a bug in bayes-rr; set {DEBUG_ENV}=1 for the "
+                "traceback and report it)",
+                1,
+            ) from None
 
     return wrapper
 
@@ -397,14 +435,20 @@ def _in_terminal(quiet: bool) -> bool:
 
 
 def print_fit(summary: dict, classical: dict | None) -> None:
-    """Study-level table, plain readings and the classical estimates beside the posterior."""
+    """Study-level table, plain readings and the classical estimates beside the posterior.
+
+    A fit that failed the convergence gate prints why and what to do, and no result
+    numbers; results the design cannot inform are marked instead of printed.
+    """
     diag = summary["diagnostics"]
     if not diag["ok"]:
-        out.print("[bold red]NOT CONVERGED: the numbers below are not to be used.[/]")
+        out.print("NOT CONVERGED: no results are shown, and those written must not be used.",
+                  style="bold red")  # fmt: skip
         for reason in diag["reasons"]:
             out.print(f"  reason: {reason}")
         for advice in diag["advice"]:
             out.print(f"  advice: {advice}")
+        return
     for warning in diag["warnings"]:
         out.print(f"warning: {warning}")
     prob = summary["prob"]
@@ -426,6 +470,12 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         row = rows.get((key, scope))
         if row is None or row["mean"] is None:
             return "-"
+        note = row.get("note") or ""
+        # Short words that fit a narrow column; the notes below the table say why.
+        if note.startswith("set by the prior"):
+            return "prior only"
+        if note.startswith("fixed by construction"):
+            return "by design"
         return f"{row['mean']:.4f} ({row['lower']:.4f}-{row['upper']:.4f})"
 
     for key in (
@@ -448,6 +498,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
             _num(corr.get(key), 4),
         )
     out.print(table)
+    for limitation in summary.get("limitations", []):
+        out.print(f"note: {limitation['sentence']}")
     for sentence in summary["readings"]:
         out.print(sentence)
     out.print(
@@ -473,8 +525,14 @@ def run_fit(
     interval: str = "hdi",
     quiet: bool = False,
     overwrite: bool = False,
-) -> dict:
-    """Read, fit, write; return summary.json's content (library function behind 'fit')."""
+) -> tuple[dict, dict]:
+    """Read, fit, write; return summary.json's and classical.json's content (the library
+    function behind 'fit').
+
+    The output folder is checked before anything is read, so a run never samples
+    only to find that it cannot write, or would replace what it must not.
+    """
+    from bayes_rr.classical import classical_statistics
     from bayes_rr.data import read_study
     from bayes_rr.fit import fit_study
     from bayes_rr.outputs import check_output_dir, summary_document, write_fit
@@ -483,8 +541,7 @@ def run_fit(
 
     if interval not in ("hdi", "eti"):
         raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
-    check_output_dir(out_dir, overwrite)
-    study = read_study(data, options)
+    check_output_dir(out_dir, overwrite, protected=(data,))
     spec = load_spec(model)
     settings = SamplerSettings.from_spec(
         spec,
@@ -496,9 +553,13 @@ def run_fit(
         sampler=sampler,
         progress=_in_terminal(quiet),
     )
+    interrupts.checkpoint("reading", str(data))
+    study = read_study(data, options)
+    classical = classical_statistics(study, prob).as_dict()
     result = fit_study(study, spec, settings, prob=prob, interval=interval)
-    write_fit(result, out_dir, overwrite=overwrite)
-    return summary_document(result)
+    interrupts.checkpoint("writing", str(out_dir))
+    write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=(data,))
+    return summary_document(result), classical
 
 
 @app.command()
@@ -510,11 +571,19 @@ def fit(
     model: Annotated[
         str, typer.Option(help="Bundled model name (see 'bayes-rr models') or a spec file.")
     ] = "crossed-logit",
-    draws: Annotated[int | None, Col("--draws", min=10, help="Draws per chain.")] = None,
-    tune: Annotated[int | None, Col("--tune", min=10, help="Warm-up draws per chain.")] = None,
-    chains: Annotated[int | None, Col("--chains", min=1, help="Number of chains.")] = None,
+    # Ranges are checked by SamplerSettings (one line naming the limit), not by typer.
+    draws: Annotated[
+        int | None, Col("--draws", help=f"Draws per chain (10 to {MAX_DRAWS:,}).")
+    ] = None,
+    tune: Annotated[
+        int | None, Col("--tune", help=f"Warm-up draws per chain (1 to {MAX_DRAWS:,}).")
+    ] = None,
+    chains: Annotated[
+        int | None, Col("--chains", help=f"Number of chains (1 to {MAX_CHAINS}).")
+    ] = None,
     seed: Annotated[
-        int | None, Col("--seed", help="Random seed (same seed, same numbers).")
+        int | None,
+        Col("--seed", help="Random seed, 0 to 2**32 - 1 (same seed, same numbers)."),
     ] = None,
     target_accept: Annotated[
         float | None, Col("--target-accept", min=0.5, max=0.999, help="NUTS target acceptance.")
@@ -528,7 +597,10 @@ def fit(
     ] = "hdi",
     quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
     overwrite: Annotated[
-        bool, typer.Option("--overwrite", help="Replace a non-empty --out folder.")
+        bool,
+        typer.Option(
+            "--overwrite", help="Replace an earlier fit folder (never a folder of other files)."
+        ),
     ] = False,
     options: ReadOptions | None = None,
 ) -> None:
@@ -537,7 +609,7 @@ def fit(
     Exits with code 3 (results written but marked not to be used) when the
     sampler did not pass the convergence gate.
     """
-    summary = run_fit(
+    summary, classical = run_fit(
         data,
         options,
         model,
@@ -553,7 +625,6 @@ def fit(
         quiet=quiet,
         overwrite=overwrite,
     )
-    classical = json.loads((out_dir / "classical.json").read_text())
     print_fit(summary, classical)
     out.print(f"results written to {out_dir}")
     if not summary["diagnostics"]["ok"]:
@@ -590,8 +661,8 @@ def print_checks(document: dict) -> None:
     if flagged:
         out.print(f"flagged: {', '.join(flagged)}")
     if not document["converged"]:
-        out.print("[bold red]The fit did not pass the convergence gate: these checks are of a "
-                  "posterior that must not be used.[/]")  # fmt: skip
+        out.print("The fit did not pass the convergence gate: these checks are of a posterior "
+                  "that must not be used.", style="bold red")  # fmt: skip
 
 
 FitDir = Annotated[Path, typer.Argument(help="A folder written by 'bayes-rr fit'.")]
@@ -625,13 +696,17 @@ def check(
 def compare(
     fit_dirs: Annotated[list[Path], typer.Argument(help="Two or more fit folders (same data).")],
     out_file: Annotated[
-        Path | None, typer.Option("--out", help="Also write the comparison as JSON here.")
+        Path | None,
+        typer.Option("--out", help="Also write the comparison as JSON here (a .json file)."),
     ] = None,
+    overwrite: Annotated[
+        bool, typer.Option("--overwrite", help="Replace an existing --out file.")
+    ] = False,
 ) -> None:
     """Compare models of the same data by PSIS-LOO (elpd differences, stacking weights)."""
     from bayes_rr.pipeline import compare_folders
 
-    result = compare_folders(fit_dirs, out_file)
+    result = compare_folders(fit_dirs, out_file, overwrite=overwrite)
     table = Table(title=result["method"])
     for col in ("model", "elpd_loo (SE)", "elpd diff (SE)", "p_loo", "weight", "Pareto k > 0.7"):
         table.add_column(col)
@@ -655,16 +730,21 @@ def compare(
 def report(
     fit_dir: FitDir,
     out_file: Annotated[
-        Path | None, typer.Option("--out", help="Report file (default FIT_DIR/report.html).")
+        Path | None,
+        typer.Option("--out", help="Report file, ending in .html (default FIT_DIR/report.html)."),
     ] = None,
     title: Annotated[str | None, Col("--title", help="Title of the study.")] = None,
     site: Annotated[str | None, Col("--site", help="Site, line or lab of the study.")] = None,
     notes: Annotated[str | None, Col("--notes", help="Free text: who, when, why.")] = None,
+    overwrite: Annotated[
+        bool,
+        typer.Option("--overwrite", help="Replace an existing .html file not written by bayes-rr."),
+    ] = False,
 ) -> None:
     """Write one self-contained HTML report of a fit (runs the checks if needed)."""
     from bayes_rr.pipeline import report_fit
 
-    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes)
+    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes, overwrite=overwrite)
     out.print(f"report written to {path}")
 
 
@@ -679,22 +759,41 @@ def demo(
     ] = False,
     quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
 ) -> None:
-    """Run the whole job on the bundled, invented demo study: describe, fit, check, report."""
-    from bayes_rr.describe import demo_path, describe_file
+    """Run the whole job on the bundled, invented demo study: describe, fit, check, report.
 
-    out_dir.mkdir(parents=True, exist_ok=True)
+    Never writes over a file it did not write: an existing demo_study.csv must hold
+    the demo data, and an existing fit folder must be one bayes-rr wrote.
+    """
+    from bayes_rr.describe import demo_path, describe_file
+    from bayes_rr.outputs import check_location, check_output_dir
+
+    demo_bytes = demo_path().read_bytes()
     target = out_dir / "demo_study.csv"
-    target.write_bytes(demo_path().read_bytes())
-    out.print(f"demo data (invented) written to {target}")
+    fit_dir = out_dir / "fit"
+    if out_dir.exists() and not out_dir.is_dir():
+        raise DataError(f"--out {out_dir}: exists and is a file, not a folder; choose a new name")
+    if not out_dir.exists():
+        check_location(out_dir)
+    elif target.exists() and (not target.is_file() or target.read_bytes() != demo_bytes):
+        raise DataError(
+            f"--out {out_dir}: {target} exists and is not the demo data; the demo never "
+            "writes over a file; choose another --out folder"
+        )
+    if not describe_only:
+        check_output_dir(fit_dir, overwrite=True, protected=(target,))
+    out_dir.mkdir(exist_ok=True)
+    if not target.exists():
+        write_bytes_atomic(target, demo_bytes)
+        out.print(f"demo data (invented) written to {target}")
     print_description(describe_file(target))
     if describe_only:
         return
     from bayes_rr.pipeline import check_fit, report_fit
 
-    fit_dir = out_dir / "fit"
     out.print(f"fitting the default model (crossed-logit) into {fit_dir} ...")
-    summary = run_fit(target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True, quiet=quiet)
-    classical = json.loads((fit_dir / "classical.json").read_text())
+    summary, classical = run_fit(
+        target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True, quiet=quiet
+    )
     print_fit(summary, classical)
     out.print("checking the model ...")
     print_checks(check_fit(fit_dir))
@@ -703,13 +802,18 @@ def demo(
         title="Demo: final visual check of crimped terminals (invented data)",
         notes="Invented data shipped with bayes-rr to show the workflow; not a real study.",
     )
-    out.print(f"[bold]report written to {path}[/] (open it in a browser)")
+    out.print(f"report written to {path} (open it in a browser)", style="bold")
     if not summary["diagnostics"]["ok"]:
         raise typer.Exit(3)
 
 
 def main() -> None:
-    app()
+    try:
+        app()
+    except KeyboardInterrupt:
+        # A signal between commands (while typer parses, before the guard is in place).
+        err.print(INTERRUPTED)
+        sys.exit(interrupts.INTERRUPT_EXIT_CODE)
 
 
 if __name__ == "__main__":

@@ -14,9 +14,7 @@ module never imports PyMC.
 
 from __future__ import annotations
 
-import csv
 import hashlib
-import io
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -27,9 +25,9 @@ import numpy as np
 import pandas as pd
 
 from bayes_rr.errors import DataError
+from bayes_rr.tables import RawTable, read_table
 
 MAX_CALLS = 1_000_000
-MAX_FILE_BYTES = 256 * 1024 * 1024
 ROLES = ("part", "appraiser", "trial", "call", "reference", "reference_value")
 
 # Column names recognised without an option, compared after lower-casing and
@@ -37,11 +35,22 @@ ROLES = ("part", "appraiser", "trial", "call", "reference", "reference_value")
 COLUMN_SYNONYMS: dict[str, tuple[str, ...]] = {
     "part": ("part", "partid", "partno", "partnumber", "item", "sample", "specimen", "unit"),
     "appraiser": ("appraiser", "operator", "inspector", "rater", "examiner", "assessor"),
-    "trial": ("trial", "replicate", "rep", "repeat", "run", "trialno"),
-    "call": ("call", "result", "response", "decision", "outcome", "rating"),
-    "reference": ("reference", "ref", "referencestatus", "truth", "standard", "known"),
-    "reference_value": ("referencevalue", "refvalue", "truevalue", "measuredvalue"),
-}
+    "trial": (
+        "trial", "trialno", "replicate", "replication", "rep", "repeat", "repetition", "run",
+        "round", "attempt",
+    ),
+    "call": ("call", "result", "response", "decision", "outcome", "rating", "verdict"),
+    "reference": (
+        "reference", "ref", "referencestatus", "referencecall", "referencejudgement", "truth",
+        "truestatus", "standard", "known", "knownstatus", "master", "mastercall", "masterstatus",
+        "masterjudgement", "expert", "expertcall", "expertjudgement", "gold", "goldstandard",
+        "expected", "expectedcall",
+    ),
+    "reference_value": (
+        "referencevalue", "refvalue", "truevalue", "measuredvalue", "measurement", "mastervalue",
+        "referencemeasurement",
+    ),
+}  # fmt: skip
 
 # Pairs of (accept, reject) labels recognised without an option. A study's
 # labels must all come from one pair; anything else must be declared.
@@ -55,7 +64,6 @@ LABEL_VOCABULARIES: tuple[tuple[str, str], ...] = (
     ("conforming", "nonconforming"),
 )
 
-MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null"})
 
 WIDE_COLUMN = re.compile(
     r"^(?P<appraiser>.*?\S)\s*(?:[_\-.:/#]|\s)\s*"
@@ -139,7 +147,9 @@ class StudyData:
         whatever the layout, row order or label spelling.
     notes
         Things the reader did that a user should know (dropped rows, trial
-        numbers assigned from file order).
+        numbers assigned from file order, columns not used).
+    ignored_columns
+        Columns of the file that were not used (none is dropped silently).
     """
 
     calls: pd.DataFrame
@@ -151,6 +161,7 @@ class StudyData:
     source: str
     sha256: str
     notes: tuple[str, ...] = ()
+    ignored_columns: tuple[str, ...] = ()
 
     @property
     def n_calls(self) -> int:
@@ -184,6 +195,7 @@ class StudyData:
             ),
             "has_reference_value": self.reference_value is not None,
             "data_sha256": self.sha256,
+            "ignored_columns": list(self.ignored_columns),
             "notes": list(self.notes),
         }
 
@@ -221,17 +233,26 @@ def _norm_id(value: object) -> str:
     return text
 
 
+def _norm_trial(value: object) -> str:
+    """Trial label: a number is a number (``02``, ``2`` and ``2.0`` are one trial)."""
+    text = _norm_id(value)
+    if re.fullmatch(r"\+?\d+", text):
+        return str(int(text))
+    return text
+
+
 def _is_missing(value: object) -> bool:
+    """Only a truly empty cell is missing: ``NA``, ``None`` or ``nan`` may be a name."""
     if value is None:
         return True
     if isinstance(value, float) and np.isnan(value):
         return True
-    return str(value).strip().lower() in MISSING_TOKENS
+    return not str(value).strip()
 
 
 def _lines(rows: Sequence[int], limit: int = 8) -> str:
-    """Data row positions (0-based) as file line numbers (header is line 1)."""
-    shown = ", ".join(str(r + 2) for r in list(rows)[:limit])
+    """File line numbers, shortened to the first few."""
+    shown = ", ".join(str(r) for r in list(rows)[:limit])
     more = f" and {len(rows) - limit} more" if len(rows) > limit else ""
     return f"line{'s' if len(rows) > 1 else ''} {shown}{more}"
 
@@ -240,93 +261,24 @@ def _lines(rows: Sequence[int], limit: int = 8) -> str:
 # reading the table
 
 
-def _read_table(path: Path, sheet: str | None) -> tuple[pd.DataFrame, int]:
-    """The raw table (all cells as strings) and the number of comment lines above its header."""
-    if not path.exists():
-        raise DataError(f"{path}: file not found; check the path")
-    if path.is_dir():
-        raise DataError(f"{path}: is a folder, expected a CSV or XLSX file")
-    size = path.stat().st_size
-    if size == 0:
-        raise DataError(f"{path}: file is empty; expected a CSV or XLSX table of calls")
-    if size > MAX_FILE_BYTES:
-        raise DataError(
-            f"{path}: file is {size / 2**20:.0f} MiB, more than the "
-            f"{MAX_FILE_BYTES // 2**20} MiB a study can have; split the study or check the file"
-        )
-    with path.open("rb") as fh:
-        head = fh.read(65536)
-    if head.startswith(b"PK\x03\x04") or path.suffix.lower() in (".xlsx", ".xlsm"):
-        return _read_xlsx(path, sheet), 0
-    if sheet is not None:
-        raise DataError(f"{path}: --sheet {sheet!r} given but the file is not an XLSX workbook")
-    if b"\x00" in head:
-        raise DataError(
-            f"{path}: not a text file (binary content); expected a CSV file saved as UTF-8"
-        )
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise DataError(
-            f"{path}: not UTF-8 text (byte {exc.start}: {exc.object[exc.start : exc.start + 1]!r});"
-            " save the table as 'CSV UTF-8' and try again"
-        ) from None
-    if not text.strip():
-        raise DataError(f"{path}: file holds only white space; expected a table of calls")
-    # Leading lines starting with '#' describe the file (the demo data say there
-    # that they are invented); they are not part of the table.
-    lines = text.splitlines()
-    comments = 0
-    while comments < len(lines) and lines[comments].lstrip().startswith("#"):
-        comments += 1
-    text = "\n".join(lines[comments:])
-    if not text.strip():
-        raise DataError(f"{path}: file holds only comment lines; expected a table of calls")
-    sample = "\n".join(lines[comments : comments + 50])
-    try:
-        delimiter = csv.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
-    except csv.Error:
-        delimiter = ","
-    try:
-        frame = pd.read_csv(
-            io.StringIO(text),
-            sep=delimiter,
-            dtype=str,
-            keep_default_na=False,
-            skipinitialspace=True,
-        )
-    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else "no columns"
-        raise DataError(
-            f"{path}: not a readable table ({first}); expected one header row and rows of calls"
-        ) from None
-    return frame, comments
-
-
-def _read_xlsx(path: Path, sheet: str | None) -> pd.DataFrame:
-    try:
-        book = pd.ExcelFile(path, engine="openpyxl")
-    except Exception as exc:  # openpyxl raises many types for broken files
-        raise DataError(f"{path}: not a readable XLSX workbook ({type(exc).__name__})") from None
-    with book:
-        names = book.sheet_names
-        if sheet is not None and sheet not in names:
-            raise DataError(f"{path}: no sheet {sheet!r}; the workbook has sheets {names}")
-        frame = pd.read_excel(
-            book, sheet_name=sheet if sheet is not None else names[0], dtype=object
-        )
-    frame = frame.map(lambda v: "" if _is_missing(v) else str(v))
-    frame.columns = [str(c) for c in frame.columns]
-    return frame
-
-
 def _clean_columns(frame: pd.DataFrame, source: str) -> pd.DataFrame:
     frame = frame.copy()
     frame.columns = [str(c).strip() for c in frame.columns]
-    frame = frame.loc[:, [not c.startswith("Unnamed:") or frame[c].ne("").any() for c in frame]]
-    dupes = sorted({c for c in frame.columns if list(frame.columns).count(c) > 1})
+    names = list(frame.columns)
+    dupes = sorted({c for c in names if c and names.count(c) > 1})
     if dupes:
-        raise DataError(f"{source}: column name(s) {dupes} appear more than once; rename them")
+        raise DataError(
+            f"{source}: column name(s) {dupes} appear more than once in the header; give every "
+            "column its own name"
+        )
+    unnamed = [k for k, c in enumerate(names) if not c]
+    holding = [k + 1 for k in unnamed if frame.iloc[:, k].map(lambda v: not _is_missing(v)).any()]
+    if holding:
+        raise DataError(
+            f"{source}: column(s) number {holding} have no name in the header but hold values; "
+            "name them (or delete them)"
+        )
+    frame = frame.iloc[:, [k for k in range(len(names)) if names[k]]]
     # Rows that are blank everywhere are spreadsheet padding, not missing calls.
     blank = frame.apply(lambda col: col.map(_is_missing)).all(axis=1)
     return frame.loc[~blank]
@@ -429,8 +381,10 @@ def _wide_mapping(
     if unmatched:
         raise DataError(
             f"{source}: wide layout, but column(s) {unmatched} are not of the form "
-            "APPRAISER_TRIAL (e.g. 'A_1', 'A-2', 'A trial 3'); rename them, map them "
-            "explicitly, or name the columns of a tidy layout"
+            "APPRAISER_TRIAL (e.g. 'A_1', 'A-2', 'A trial 3'); map a call column with "
+            "--wide-column 'COLUMN=APPRAISER:TRIAL', a reference status column with "
+            "--reference-col, a measured reference value with --reference-value-col, or "
+            "delete columns that are not part of the study"
         )
     if not mapping:
         raise DataError(
@@ -442,10 +396,11 @@ def _wide_mapping(
 
 
 def _to_long(
-    frame: pd.DataFrame, options: ReadOptions, source: str, line_offset: int
-) -> pd.DataFrame:
+    frame: pd.DataFrame, options: ReadOptions, source: str
+) -> tuple[pd.DataFrame, list[str]]:
     """Long table with columns part, appraiser, trial, call (raw), reference, reference_value
-    and ``row`` (0-based data row of the file), in file order."""
+    and ``row`` (the file line of the call; ``frame``'s index), in file order; and the
+    columns of ``frame`` it used."""
     found = {role: _find_column(frame, role, options, source) for role in ROLES}
     if found["part"] is None:
         raise DataError(
@@ -459,8 +414,7 @@ def _to_long(
         tidy_like = found["call"] is not None or found["appraiser"] is not None
         layout = "tidy" if tidy_like else "wide"
     extra = {found["reference"], found["reference_value"]} - {None}
-    # Data rows keep their position in the file even after blank rows were dropped.
-    rows = frame.index.to_numpy() + line_offset
+    rows = frame.index.to_numpy()
     positions = np.arange(len(frame))
     if layout == "tidy":
         for role in ("appraiser", "call"):
@@ -479,6 +433,7 @@ def _to_long(
                 "pos": positions,
             }
         )
+        used = [found[r] for r in ("part", "appraiser", "trial", "call")] + sorted(extra)
     else:
         ids = {found["part"], *extra}
         mapping = _wide_mapping(frame, ids, options, source)
@@ -497,10 +452,11 @@ def _to_long(
                 )
             )
         long = pd.concat(pieces, ignore_index=True)
+        used = [found["part"], *sorted(extra), *mapping]
     for role in ("reference", "reference_value"):
         col = found[role]
         long[role] = frame[col].to_numpy()[long["pos"].to_numpy()] if col else None
-    return long.drop(columns="pos")
+    return long.drop(columns="pos"), [c for c in used if c]
 
 
 # ---------------------------------------------------------------------------
@@ -547,7 +503,7 @@ def _validated_calls(long: pd.DataFrame, options: ReadOptions, source: str) -> t
                 f"{source}: empty trial at {_lines(long.loc[bad, 'row'].tolist())}; "
                 "number every trial, or remove the trial column to number them in file order"
             )
-        long["trial"] = long["trial"].map(_norm_id)
+        long["trial"] = long["trial"].map(_norm_trial)
     dup = long.duplicated(["part", "appraiser", "trial"], keep=False)
     if dup.any():
         first = long.loc[dup].iloc[0]
@@ -633,6 +589,7 @@ def build_study(
     reference: pd.Series | None = None,
     reference_value: pd.Series | None = None,
     notes: Sequence[str] = (),
+    ignored_columns: Sequence[str] = (),
 ) -> StudyData:
     """Assemble :class:`StudyData` from validated calls (part, appraiser, trial, call 0/1)."""
     parts = tuple(sorted(long["part"].unique(), key=natural_key))
@@ -681,6 +638,7 @@ def build_study(
         source=source,
         sha256=study_hash(calls, reference, reference_value),
         notes=tuple(notes),
+        ignored_columns=tuple(ignored_columns),
     )
 
 
@@ -689,13 +647,17 @@ def study_from_frame(
     options: ReadOptions | None = None,
     *,
     source: str = "<table>",
-    line_offset: int = 0,
+    lines: Sequence[int] | None = None,
+    notes: Sequence[str] = (),
 ) -> StudyData:
-    """Validate a table already in memory (same rules as :func:`read_study`)."""
+    """Validate a table already in memory (same rules as :func:`read_study`).
+
+    ``lines`` gives the file line of each row, for messages; by default the rows
+    are numbered as in a file with one header line (first row = line 2).
+    """
     options = options or ReadOptions()
-    frame = (
-        frame.reset_index(drop=True).astype(object).map(lambda v: "" if _is_missing(v) else str(v))
-    )
+    frame = frame.astype(object).map(lambda v: "" if _is_missing(v) else str(v))
+    frame.index = pd.Index(lines if lines is not None else range(2, len(frame) + 2))
     frame = _clean_columns(frame, source)
     if frame.shape[1] < 2:
         raise DataError(
@@ -709,12 +671,25 @@ def study_from_frame(
             f"{source}: {frame.shape[0]:,} rows x {frame.shape[1]} columns is more than a study "
             f"of {MAX_CALLS:,} calls; check the file"
         )
-    long = _to_long(frame, options, source, line_offset)
-    long, notes = _validated_calls(long, options, source)
+    long, used = _to_long(frame, options, source)
+    long, call_notes = _validated_calls(long, options, source)
     reference = _per_part(long, "reference", source, options)
     reference_value = _per_part(long, "reference_value", source, options)
+    ignored = tuple(c for c in frame.columns if c not in used)
+    all_notes = [*notes, *call_notes]
+    if ignored:
+        all_notes.append(
+            f"column(s) {list(ignored)} not used: not recognised as part, appraiser, trial, "
+            "call, reference status or reference value; map one with --trial-col, "
+            "--reference-col, ... if it is one of those"
+        )
     return build_study(
-        long, source=source, reference=reference, reference_value=reference_value, notes=notes
+        long,
+        source=source,
+        reference=reference,
+        reference_value=reference_value,
+        notes=all_notes,
+        ignored_columns=ignored,
     )
 
 
@@ -729,8 +704,22 @@ def read_study(path: str | Path, options: ReadOptions | None = None) -> StudyDat
     """
     path = Path(path)
     options = options or ReadOptions()
-    frame, comments = _read_table(path, options.sheet)
-    return study_from_frame(frame, options, source=path.name, line_offset=comments)
+    table: RawTable = read_table(path, options.sheet)
+    notes = []
+    source = path.name
+    if table.sheet is not None and len(table.sheets) > 1:
+        notes.append(f"read sheet {table.sheet!r} of the workbook's sheets {list(table.sheets)}")
+        source = f"{path.name} (sheet {table.sheet!r})"
+    try:
+        return study_from_frame(table.frame, options, source=source, lines=table.lines, notes=notes)
+    except DataError as exc:
+        if table.sheet is not None and len(table.sheets) > 1 and options.sheet is None:
+            others = [n for n in table.sheets if n != table.sheet]
+            raise DataError(
+                f"{exc} (the first sheet was read; the workbook also has sheets {others}: "
+                "choose one with --sheet NAME)"
+            ) from None
+        raise
 
 
 def study_from_cells(

@@ -25,6 +25,12 @@ class OutputError(BayesRRError):
     exit_code = 2
 
 
+class SamplingError(BayesRRError):
+    """The sampler did not deliver the sample asked for (cut short, or failed)."""
+
+    exit_code = 3
+
+
 class ConvergenceError(BayesRRError):
     """The sampler did not pass the convergence gate."""
 

@@ -9,13 +9,13 @@ from __future__ import annotations
 import platform
 import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 from importlib import metadata
 
 import xarray as xr
 
-from bayes_rr import DEFAULT_PROB, __version__
+from bayes_rr import DEFAULT_PROB, __version__, interrupts
 from bayes_rr.data import StudyData
 from bayes_rr.estimands import (
     SummaryRow,
@@ -24,7 +24,14 @@ from bayes_rr.estimands import (
     log_likelihood_dataset,
     summarize,
 )
-from bayes_rr.sampling import Diagnostics, SamplerSettings, convergence_gate, sample_model
+from bayes_rr.limitations import Limitation, design_limitations, limitation_for, note_for
+from bayes_rr.sampling import (
+    Diagnostics,
+    SamplerSettings,
+    check_memory,
+    convergence_gate,
+    sample_model,
+)
 from bayes_rr.spec import ModelSpec
 
 HYPER_PARAMETERS = (
@@ -53,6 +60,7 @@ class FitResult:
     prob: float
     interval: str
     provenance: dict
+    limitations: tuple[Limitation, ...] = ()
 
 
 def package_versions() -> dict[str, str]:
@@ -93,18 +101,26 @@ def fit_study(
     prob: float = DEFAULT_PROB,
     interval: str = "hdi",
 ) -> FitResult:
-    """Sample the posterior of ``spec`` for ``study`` and compute every estimand."""
+    """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
+
+    Refuses (``SpecError``) a run that would not fit in memory, before compiling.
+    An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
+    library cut short is never summarised.
+    """
     import arviz as az
 
     from bayes_rr.families import build_model
     from bayes_rr.families.common import parameterizations
 
+    check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings)
     started = datetime.now(UTC)
+    interrupts.checkpoint("compiling", f"the {spec.name} model")
     t0 = time.perf_counter()
     model = build_model(spec, study)
     timings = {"build_s": time.perf_counter() - t0}
     run = sample_model(model, settings)
     timings.update(run.timings)
+    interrupts.checkpoint("summarising")
     idata = run.idata
     # Keep the constrained parameters only: the sampler's unconstrained copies
     # (``*_log__``) are an implementation detail.
@@ -123,7 +139,8 @@ def fit_study(
     timings["estimands_s"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     hyper = posterior[[v for v in HYPER_PARAMETERS if v in posterior]]
-    estimand_rows = tuple(summarize(estimands, prob, interval))
+    limitations = tuple(design_limitations(study, spec))
+    estimand_rows = tuple(mark_limited(summarize(estimands, prob, interval), limitations))
     parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
     diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
     timings["summaries_s"] = time.perf_counter() - t0
@@ -155,16 +172,35 @@ def fit_study(
         prob=prob,
         interval=interval,
         provenance=provenance,
+        limitations=limitations,
     )
 
 
-def plain_readings(rows: list[dict], prob: float) -> list[str]:
-    """Sentences for people who do not think in variances of 0/1 calls."""
+def mark_limited(rows: list[SummaryRow], limitations) -> list[SummaryRow]:
+    """Put a note on every row whose result the design or the model cannot inform."""
+    out = []
+    for row in rows:
+        limitation = limitation_for(list(limitations), row.key, row.scope)
+        if limitation is not None:
+            note = note_for(limitation) + (f"; {row.note}" if row.note else "")
+            row = replace(row, note=note)
+        out.append(row)
+    return out
+
+
+def plain_readings(rows: list[dict], prob: float, limitations=()) -> list[str]:
+    """Sentences for people who do not think in variances of 0/1 calls.
+
+    A sentence that rests on a result the design cannot inform (``limitations``) is
+    withheld; the limitation's own sentence says why.
+    """
     by_key = {(r["key"], r["scope"]): r for r in rows if r["level"] == "study"}
 
     def fmt(key: str, scope: str, percent: bool = False) -> str | None:
         row = by_key.get((key, scope))
         if row is None or row["mean"] is None:
+            return None
+        if limitation_for(list(limitations), key, scope) is not None:
             return None
         if percent:
             return f"{row['mean']:.0%} ({row['lower']:.0%} to {row['upper']:.0%})"

@@ -36,12 +36,18 @@ def dumps(value: Any) -> str:
 
 
 def write_text_atomic(path: Path, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file in the same folder."""
+    """Write ``text`` (UTF-8) to ``path`` through a temporary file in the same folder."""
+    write_bytes_atomic(path, text.encode("utf-8"))
+
+
+def write_bytes_atomic(path: Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` through a temporary file in the same folder: a reader
+    (or an interrupt) never sees half a file."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
         # mkstemp makes the file private (0600); give it the usual permissions.
         umask = os.umask(0)
         os.umask(umask)

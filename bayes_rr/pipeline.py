@@ -20,17 +20,37 @@ from bayes_rr.checks import (
 from bayes_rr.errors import OutputError
 from bayes_rr.fit import HYPER_PARAMETERS
 from bayes_rr.jsonio import dumps, write_text_atomic
-from bayes_rr.outputs import LoadedFit, load_fit
+from bayes_rr.outputs import (
+    AGAIN,
+    FILES,
+    GENERATOR,
+    MALFORMED,
+    LoadedFit,
+    check_output_file,
+    load_fit,
+)
 
 CHECKS_FILE = "checks.json"
+
+
+def _malformed(folder: str | Path, exc: Exception) -> OutputError:
+    return OutputError(
+        f"{folder}: a file of the fit folder lacks what this step needs "
+        f"({type(exc).__name__}: {exc}); {AGAIN}"
+    )
+
+
 REPORT_FILE = "report.html"
 
 
 def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int = 0) -> dict:
     """Posterior and prior predictive checks of a fit; writes ``checks.json``."""
     fit = load_fit(folder)
-    ppc = posterior_predictive_check(fit.idata.posterior, fit.spec, fit.study, draws=draws,
-                                     seed=seed)  # fmt: skip
+    try:
+        ppc = posterior_predictive_check(fit.idata.posterior, fit.spec, fit.study, draws=draws,
+                                         seed=seed)  # fmt: skip
+    except MALFORMED as exc:
+        raise _malformed(folder, exc) from None
     # PyMC logs the variables it samples from the prior; that is noise here. (PyMC
     # sets its logger's level when first imported, so import it before changing it.)
     import pymc  # noqa: F401
@@ -52,10 +72,19 @@ def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int
 
 
 def load_checks(folder: str | Path) -> dict | None:
+    """The checks of a fit folder, or None when they are missing or unreadable (the
+    report then runs them again)."""
     import json
 
     path = Path(folder) / CHECKS_FILE
-    return json.loads(path.read_text(encoding="utf-8")) if path.is_file() else None
+    if not path.is_file():
+        return None
+    try:
+        document = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    ok = isinstance(document, dict) and isinstance(document.get("posterior_predictive"), dict)
+    return document if ok else None
 
 
 def _figures(fit: LoadedFit, checks: dict | None) -> dict:
@@ -104,37 +133,60 @@ def report_fit(
     site: str | None = None,
     notes: str | None = None,
     run_checks: bool = True,
+    overwrite: bool = False,
 ) -> Path:
-    """Write the HTML report of a fit (running the checks first when they are missing)."""
+    """Write the HTML report of a fit (running the checks first when they are missing).
+
+    The report file must end in .html; an existing file is replaced only when the
+    toolkit wrote it, or with ``overwrite``; a file of the fit folder never.
+    """
     from bayes_rr.report import ReportInputs, render_report
 
     folder = Path(folder)
+    target = Path(out) if out else folder / REPORT_FILE
+    check_output_file(
+        target,
+        suffixes=(".html", ".htm"),
+        overwrite=overwrite,
+        protected=tuple(folder / name for name in (*FILES, CHECKS_FILE)),
+    )
     fit = load_fit(folder)
     checks = load_checks(folder)
     if checks is None and run_checks:
         checks = check_fit(folder)
-    target = Path(out) if out else folder / REPORT_FILE
-    if target.exists() and target.is_dir():
-        raise OutputError(f"--out {target}: is a folder; give a file name such as report.html")
-    inputs = ReportInputs(
-        summary=fit.summary,
-        run=fit.run,
-        classical=fit.classical,
-        checks=checks,
-        figures=_figures(fit, checks),
-        title=title,
-        site=site,
-        notes=notes,
-        folder=str(folder),
-    )
-    html = render_report(inputs)
-    target.parent.mkdir(parents=True, exist_ok=True)
+    from bayes_rr.plots import literal_text
+
+    # Names from the data are drawn literally (a "$" is no mathematics), and the
+    # figures are drawn when the report embeds them: both inside the block.
+    with literal_text():
+        try:
+            inputs = ReportInputs(
+                summary=fit.summary,
+                run=fit.run,
+                classical=fit.classical,
+                checks=checks,
+                figures=_figures(fit, checks),
+                title=title,
+                site=site,
+                notes=notes,
+                folder=str(folder),
+            )
+            html = render_report(inputs)
+        except MALFORMED as exc:
+            raise _malformed(folder, exc) from None
     write_text_atomic(target, html)
     return target
 
 
-def compare_folders(folders: list[str | Path], out: str | Path | None = None) -> dict:
-    """LOO comparison of several fits of the same data; optionally written as JSON."""
+def compare_folders(
+    folders: list[str | Path], out: str | Path | None = None, *, overwrite: bool = False
+) -> dict:
+    """LOO comparison of several fits of the same data; optionally written as JSON (an
+    existing file only when the toolkit wrote it, or with ``overwrite``)."""
+    if out:
+        protected = tuple(Path(f) / name for f in folders for name in (*FILES, CHECKS_FILE))
+        check_output_file(Path(out), suffixes=(".json",), overwrite=overwrite,
+                          protected=protected)  # fmt: skip
     fits = [load_fit(f) for f in folders]
     names = []
     for fit in fits:
@@ -148,5 +200,8 @@ def compare_folders(folders: list[str | Path], out: str | Path | None = None) ->
     )
     result["folders"] = {n: str(f.folder) for n, f in zip(names, fits, strict=True)}
     if out:
-        write_text_atomic(Path(out), dumps(result) + "\n")
+        from bayes_rr import __version__
+
+        document = {"generator": f"{GENERATOR} {__version__}", **result}
+        write_text_atomic(Path(out), dumps(document) + "\n")
     return result

@@ -8,6 +8,10 @@ directly (no pyplot state), so they work on any backend and in threads.
 
 from __future__ import annotations
 
+import contextlib
+from collections.abc import Iterator
+
+import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
 
@@ -18,6 +22,15 @@ STUDY_PANELS = (
     ("reproducibility_share", "reproducibility share V/T"),
 )
 GREY = "0.35"
+
+
+@contextlib.contextmanager
+def literal_text() -> Iterator[None]:
+    """Make and draw figures in this block with every text taken literally: a "$" in a
+    part or appraiser name starts no mathematics. (Tick labels are made when a figure
+    is drawn, so the block must hold the drawing too, not only the making.)"""
+    with matplotlib.rc_context({"text.parse_math": False}):
+        yield
 
 
 def _new(width: float, height: float, rows: int = 1, cols: int = 1):

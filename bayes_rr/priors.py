@@ -28,6 +28,19 @@ DISTRIBUTIONS: dict[str, tuple[Support, tuple[str, ...], dict[str, float]]] = {
 }
 POSITIVE_PARAMETERS = {"sigma", "nu", "lam", "alpha", "beta"}
 
+# Plausible ranges of prior parameters. The priors of intercepts and group scales
+# live on the logit scale, where a scale below 1e-3 pins a parameter to a point and
+# one above 1e2 piles every call rate at 0 and 1; numbers outside these ranges are
+# almost always typos (1e300, 1e-300) and break the sampler's arithmetic.
+PARAMETER_RANGES: dict[str, tuple[float, float]] = {
+    "sigma": (1e-3, 1e2),
+    "mu": (-1e2, 1e2),
+    "lam": (1e-2, 1e3),
+    "nu": (0.5, 1e3),
+    "alpha": (1e-3, 1e4),
+    "beta": (1e-3, 1e4),
+}
+
 
 @dataclass(frozen=True)
 class Prior:
@@ -116,6 +129,13 @@ def make_prior(raw: object, where: str) -> Prior:
             raise ValueError(f"{where}.{key} = {value!r}: expected a finite number")
         if key in POSITIVE_PARAMETERS and value <= 0:
             raise ValueError(f"{where}.{key} = {value!r}: must be greater than 0")
+        low, high = PARAMETER_RANGES[key]
+        if not low <= value <= high:
+            raise ValueError(
+                f"{where}.{key} = {value!r}: outside the plausible range {low:g} to {high:g} "
+                "for this parameter (priors of intercepts and scales are on the logit scale); "
+                "check the number"
+            )
         params[key] = value
     ordered = tuple((k, params[k]) for k in (*required, *optional))
     return Prior(name, ordered)

@@ -107,9 +107,16 @@ def _study_rows(summary: dict) -> dict:
     return {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
 
 
+LIMITED_NOTES = ("set by the prior", "fixed by construction")
+
+
 def _interval(row: dict | None, digits: int = 4) -> str:
     if row is None or row.get("mean") is None:
         return "-"
+    note = row.get("note") or ""
+    if note.startswith(LIMITED_NOTES):
+        # The design cannot inform this result: say so instead of printing a number.
+        return f"<em>{esc(note.split(';')[0])}</em>"
     return f"{row['mean']:.{digits}f} ({row['lower']:.{digits}f} to {row['upper']:.{digits}f})"
 
 
@@ -124,7 +131,8 @@ def _findings(inputs: ReportInputs) -> str:
             "<p>The sampler did not pass the convergence gate, so this report gives no "
             "results. See the convergence section for the reasons and what to do.</p>"
         )
-    sentences = list(summary["readings"])
+    sentences = [lim["sentence"] for lim in summary.get("limitations", [])]
+    sentences += list(summary["readings"])
     checks = inputs.checks
     if checks is not None:
         ppc = checks["posterior_predictive"]
@@ -144,6 +152,7 @@ def _study_section(inputs: ReportInputs) -> str:
                                           f"{design['trials_per_cell_max']}"],
         ["empty part x appraiser cells", esc(design["empty_cells"])],
         ["reference status known", "yes" if design["has_reference"] else "no"],
+        ["columns not used", esc(", ".join(design.get("ignored_columns", [])) or "none")],
         ["data SHA-256", f"<code>{esc(design['data_sha256'])}</code>"],
     ]  # fmt: skip
     for label, value in (("site", inputs.site), ("notes", inputs.notes)):
@@ -455,6 +464,7 @@ def render_report(inputs: ReportInputs) -> str:
     )
     return (
         "<!DOCTYPE html>\n<html lang='en'><head><meta charset='utf-8'>"
+        f'<meta name="generator" content="bayes-rr {esc(inputs.run["versions"]["bayes_rr"])}">'
         f"<meta name='viewport' content='width=device-width, initial-scale=1'>"
         f"<title>{esc(title)}</title><style>{STYLE}</style></head><body>"
         f"{banner}<h1>{esc(title)}</h1>"

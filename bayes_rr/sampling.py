@@ -8,16 +8,20 @@ spec give the same draws.
 from __future__ import annotations
 
 import math
+import os
 import time
 from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 import xarray as xr
 
-from bayes_rr.errors import SpecError
+from bayes_rr.errors import SamplingError, SpecError
 from bayes_rr.family_table import SAMPLERS
-from bayes_rr.spec import ModelSpec, SamplerDefaults
+from bayes_rr.spec import MAX_CHAINS, MAX_DRAWS, ModelSpec, SamplerDefaults
 
+MEMORY_SHARE = 0.4
+"""Share of the machine's memory a fit may plan to use (the rest is for the system,
+the sampler's own buffers and other jobs on a shared machine)."""
 R_HAT_MAX = 1.01
 ESS_MIN = 400
 BFMI_MIN = 0.3
@@ -42,9 +46,19 @@ class SamplerSettings:
     def __post_init__(self) -> None:
         if self.sampler not in SAMPLERS:
             raise SpecError(f"sampler {self.sampler!r}: expected one of {list(SAMPLERS)}")
-        for key in ("draws", "tune", "chains"):
-            if getattr(self, key) < 1:
-                raise SpecError(f"{key} = {getattr(self, key)!r}: expected at least 1")
+        limits = (("draws", 10, MAX_DRAWS), ("tune", 1, MAX_DRAWS), ("chains", 1, MAX_CHAINS))
+        for key, least, most in limits:
+            value = getattr(self, key)
+            if isinstance(value, bool) or not isinstance(value, int) or not least <= value <= most:
+                raise SpecError(
+                    f"{key} = {value!r}: expected a whole number from {least} to {most:,}"
+                )
+        if (
+            isinstance(self.seed, bool)
+            or not isinstance(self.seed, int)
+            or not (0 <= self.seed < 2**32)
+        ):
+            raise SpecError(f"seed = {self.seed!r}: expected a whole number from 0 to 2**32 - 1")
         if not 0.5 <= self.target_accept < 1:
             raise SpecError(
                 f"target_accept = {self.target_accept!r}: expected a number in [0.5, 1)"
@@ -60,6 +74,40 @@ class SamplerSettings:
         return asdict(self)
 
 
+def machine_memory_bytes() -> int:
+    """Physical memory of this machine (a generous guess where the OS does not say)."""
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    except (ValueError, OSError, AttributeError):
+        return 16 * 2**30
+
+
+def planned_memory_bytes(parts: int, appraisers: int, cells: int, settings: SamplerSettings) -> int:
+    """A generous estimate of the memory a fit of this size needs at its peak.
+
+    Per draw: the parameters and their deterministic copies (about twice parts +
+    appraisers + cells), every per-part estimand in both scopes (about 20 per part),
+    the latent call probabilities and their temporaries (about 8 per part and
+    appraiser) and the cell log likelihood; doubled for the copies made while
+    summarising and writing. Measured peaks stay below it.
+    """
+    per_draw = 2 * (parts + appraisers + cells) + 20 * parts + 8 * parts * appraisers + cells
+    return int(16 * per_draw * settings.draws * settings.chains)
+
+
+def check_memory(parts: int, appraisers: int, cells: int, settings: SamplerSettings) -> None:
+    """Refuse, before anything is compiled, a fit that would not fit in memory."""
+    need = planned_memory_bytes(parts, appraisers, cells, settings)
+    budget = MEMORY_SHARE * machine_memory_bytes()
+    if need > budget:
+        raise SpecError(
+            f"{settings.chains} chains x {settings.draws:,} draws of a study of {parts} parts x "
+            f"{appraisers} appraisers need about {need / 2**30:.1f} GiB, more than the "
+            f"{budget / 2**30:.1f} GiB budget ({MEMORY_SHARE:.0%} of this machine's memory); "
+            "use fewer --draws or --chains"
+        )
+
+
 @dataclass(frozen=True)
 class SampleRun:
     """An InferenceData and how long each stage took (seconds)."""
@@ -69,8 +117,15 @@ class SampleRun:
 
 
 def sample_model(model, settings: SamplerSettings) -> SampleRun:
-    """Sample ``model`` (the cell log likelihood is added by the estimands step)."""
+    """Sample ``model`` (the cell log likelihood is added by the estimands step).
+
+    Raises ``KeyboardInterrupt`` when a signal came during sampling, even where the
+    sampler caught it and returned the draws it had (nutpie and PyMC both do), and
+    :class:`SamplingError` for any sample shorter than asked for.
+    """
     import pymc as pm
+
+    from bayes_rr import interrupts
 
     timings = {}
     start = time.perf_counter()
@@ -79,6 +134,7 @@ def sample_model(model, settings: SamplerSettings) -> SampleRun:
 
         compiled = nutpie.compile_pymc_model(model)
         timings["compile_s"] = time.perf_counter() - start
+        interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
         start = time.perf_counter()
         idata = nutpie.sample(
             compiled,
@@ -92,6 +148,7 @@ def sample_model(model, settings: SamplerSettings) -> SampleRun:
             save_warmup=False,
         )
     else:
+        interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
         idata = pm.sample(
             draws=settings.draws,
             tune=settings.tune,
@@ -104,6 +161,13 @@ def sample_model(model, settings: SamplerSettings) -> SampleRun:
             model=model,
         )
     timings["sample_s"] = time.perf_counter() - start
+    interrupts.raise_if_interrupted()
+    got = (idata.posterior.sizes.get("chain", 0), idata.posterior.sizes.get("draw", 0))
+    if got != (settings.chains, settings.draws):
+        raise SamplingError(
+            f"the sampler returned {got[0]} chains x {got[1]} draws instead of "
+            f"{settings.chains} x {settings.draws}; nothing was written; run the fit again"
+        )
     return SampleRun(idata, timings)
 
 

@@ -26,6 +26,11 @@ from bayes_rr.family_table import (
 )
 from bayes_rr.priors import Prior, make_prior
 
+MAX_DRAWS = 100_000
+"""Most draws (or warm-up draws) per chain: far beyond any study's needs, well below
+what would exhaust memory before the memory check could say so."""
+MAX_CHAINS = 64
+
 
 @dataclass(frozen=True)
 class TermSpec:
@@ -170,10 +175,12 @@ def _sampler(raw: dict, source: str) -> SamplerDefaults:
     if sampler not in SAMPLERS:
         raise SpecError(f"{source}: sampler.sampler = {sampler!r}: expected one of {SAMPLERS}")
     values = {}
-    for key in ("draws", "tune", "chains"):
+    for key, most in (("draws", MAX_DRAWS), ("tune", MAX_DRAWS), ("chains", MAX_CHAINS)):
         value = table.get(key, getattr(defaults, key))
-        if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-            raise SpecError(f"{source}: sampler.{key} = {value!r}: expected a whole number >= 1")
+        if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value <= most:
+            raise SpecError(
+                f"{source}: sampler.{key} = {value!r}: expected a whole number from 1 to {most:,}"
+            )
         values[key] = value
     target = table.get("target_accept", defaults.target_accept)
     if isinstance(target, bool) or not isinstance(target, int | float) or not 0.5 <= target < 1:

@@ -72,7 +72,7 @@ def _bad_cases(tmp_path):
         "binary file": (binary, "not a text file"),
         "not a table": (write(tmp_path, "one.csv", "hello\nworld\n"), "not a table"),
         "missing column": (
-            write(tmp_path, "nocall.csv", "part,appraiser,trial,verdict\n1,A,1,pass\n"),
+            write(tmp_path, "nocall.csv", "part,appraiser,trial,remark\n1,A,1,pass\n"),
             "columns found",
         ),
         "unknown labels": (

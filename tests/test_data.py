@@ -104,7 +104,7 @@ def test_unbalanced_and_missing_cells(tmp_path):
 
 
 def test_drop_missing_reports_lines(tmp_path):
-    text = "part,appraiser,trial,call\n1,A,1,1\n1,A,2,\n2,A,1,0\n2,A,2,NA\n"
+    text = "part,appraiser,trial,call\n1,A,1,1\n1,A,2,\n2,A,1,0\n2,A,2,\n"
     path = write(tmp_path, "m.csv", text)
     with pytest.raises(DataError, match=r"2 empty call\(s\) at lines 3, 5.*--drop-missing"):
         read_study(path)

@@ -34,15 +34,56 @@ def test_hand_computed_plug_in(tiny):
     assert plug.study["repeat_disagreement"] == pytest.approx(0.125)
 
 
-def test_hand_computed_corrected_keeps_negative_and_flags(tiny):
+def test_hand_computed_corrected(tiny):
     _, corr = moment_estimates(tiny)
     p1 = corr.per_part.set_index("part").loc["P1"]
-    # R = mean(0, .25 * 2/1) = .25, V = T - R = .1875 - .25 < 0: kept and flagged
+    # R = mean(0, .25 * 2/1) = .25; T = .1875 + (0/1 + .25/1) / 2^2 = .25; V = 0
     assert p1["repeatability_variance"] == pytest.approx(0.25)
-    assert p1["reproducibility_variance"] == pytest.approx(-0.0625)
-    assert corr.study["reproducibility_variance"] == pytest.approx(-0.03125)
+    assert p1["rr_variance"] == pytest.approx(0.25)
+    assert p1["reproducibility_variance"] == pytest.approx(0.0, abs=1e-15)
+
+
+def test_hand_computed_corrected_keeps_negative_and_flags():
+    # P1: both appraisers call one reject in two: q = (.5, .5), T_plug = .25,
+    # R = .5 * 2 = .5 (mean of .25 * 2/1), T = .25 + (.25 + .25)/4 = .375, V = -.125.
+    # P2: nobody rejects: T = R = V = 0.
+    study = study_from_cells(["P1", "P2"], ["A", "B"], n=[[2, 2], [2, 2]], s=[[1, 1], [0, 0]])
+    _, corr = moment_estimates(study)
+    p1 = corr.per_part.set_index("part").loc["P1"]
+    assert p1["repeatability_variance"] == pytest.approx(0.5)
+    assert p1["rr_variance"] == pytest.approx(0.375)
+    assert p1["reproducibility_variance"] == pytest.approx(-0.125)
+    assert corr.study["reproducibility_variance"] == pytest.approx(-0.0625)
     assert corr.study["reproducibility_sd"] is None
     assert any("negative" in f for f in corr.flags)
+
+
+def test_corrected_reproducibility_is_unbiased_simulation_check():
+    # Simulation check (no published value): a fixed p matrix, every part the same
+    # row of p over three appraisers, binomial calls. The plug-in V is biased up by
+    # (J - 1)/J^2 sum_j p_j(1 - p_j)/n = 0.046 here; the corrected V (T corrected too,
+    # estimands.md) averages to the true V = mean_j (p_j - pi)^2.
+    rng = np.random.default_rng(11)
+    p = np.array([0.2, 0.5, 0.7])
+    n, parts = 3, 20000
+    s = rng.binomial(n, p, size=(parts, 3))
+    study = study_from_cells([f"P{i}" for i in range(parts)], ["A", "B", "C"],
+                             np.full((parts, 3), n), s)  # fmt: skip
+    plug, corr = moment_estimates(study)
+    true_v = float(((p - p.mean()) ** 2).mean())
+    true_r = float((p * (1 - p)).mean())
+    assert corr.study["reproducibility_variance"] == pytest.approx(true_v, abs=0.002)
+    assert corr.study["repeatability_variance"] == pytest.approx(true_r, abs=0.002)
+    # the plug-in V is off by far more than the Monte Carlo error
+    assert abs(plug.study["reproducibility_variance"] - true_v) > 0.02
+
+
+def test_one_appraiser_leaves_reproducibility_out():
+    study = study_from_cells(["P1", "P2"], ["A"], n=[[3], [3]], s=[[1], [2]])
+    for est in moment_estimates(study):
+        assert est.study["reproducibility_variance"] is None
+        assert est.study["reproducibility_share"] is None
+        assert est.study["repeatability_variance"] is not None
 
 
 @pytest.mark.parametrize("seed", range(4))

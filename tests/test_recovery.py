@@ -51,7 +51,10 @@ def test_many_trials_posterior_means_approach_classical():
         15, 3, 80, mu=0.0, sigma_part=1.0, sigma_appraiser=0.5, sigma_interaction=0.3, seed=7
     )
     spec = load_spec("crossed-logit")
-    result = fit_study(sim.study, spec, SamplerSettings.from_spec(spec, seed=7))
+    # 80 trials a cell pin every effect down: a higher target acceptance avoids the
+    # few divergences (10 in 8000 at 0.95) that the sharper posterior gives.
+    settings = SamplerSettings.from_spec(spec, seed=7, target_accept=0.99)
+    result = fit_study(sim.study, spec, settings)
     assert result.diagnostics.ok, result.diagnostics.reasons
     rows = {r.key: r for r in result.estimand_rows if r.level == "study" and r.scope == "study"}
     _, corrected = moment_estimates(sim.study)

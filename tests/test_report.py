@@ -231,3 +231,22 @@ def test_report_in_headless_chromium(report_html, fit_dirs, tmp_path):
     assert pdf.exists(), proc.stderr[-2000:]
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf.read_bytes()))
     assert pages > 1
+
+
+def test_a_dollar_in_a_name_is_not_drawn_as_mathematics():
+    # Reference: matplotlib's own mathtext; "$\alpha$" drawn as mathematics is one
+    # glyph, drawn literally it is eight characters, so its box is far wider.
+    import numpy as np
+
+    from bayes_rr.plots import call_grid, literal_text
+
+    def label_width() -> float:
+        fig = call_grid(["P1"], [r"$\alpha$"], np.array([[2]]), np.array([[1]]))
+        fig.canvas.draw()
+        label = fig.axes[0].get_xticklabels()[0]
+        return label.get_window_extent().width
+
+    as_math = label_width()
+    with literal_text():
+        literal = label_width()
+    assert literal > 3 * as_math

@@ -1,0 +1,92 @@
+"""Limits that fail fast, in one line, before anything is compiled or allocated."""
+
+import pytest
+from helpers import write
+from typer.testing import CliRunner
+
+from bayes_rr.classical import MAX_PAIRWISE_APPRAISERS, classical_statistics
+from bayes_rr.cli import app
+from bayes_rr.data import study_from_cells
+from bayes_rr.errors import SpecError
+from bayes_rr.sampling import SamplerSettings, check_memory, planned_memory_bytes
+from bayes_rr.spec import load_spec, models_dir, parse_spec
+
+runner = CliRunner()
+STUDY = "part,appraiser,trial,call\n1,A,1,pass\n1,A,2,fail\n1,B,1,pass\n2,A,1,fail\n2,B,1,fail\n"
+
+
+def one_line(result, code=2) -> str:
+    assert result.exit_code == code, result.output
+    assert isinstance(result.exception, SystemExit), result.exception
+    message = result.stderr.strip()
+    assert message and "\n" not in message and "Traceback" not in result.output
+    return message
+
+
+@pytest.mark.parametrize(
+    ("option", "value", "expected"),
+    [
+        ("--draws", "1000000000", "draws = 1000000000"),
+        ("--draws", "99999999999999999999999", "draws = 99999999999999999999999"),
+        ("--draws", "5", "from 10"),
+        ("--chains", "1000", "chains = 1000"),
+        ("--seed", "-1", "seed = -1"),
+    ],
+)
+def test_sampler_numbers_out_of_range_are_one_line(tmp_path, option, value, expected):
+    data = write(tmp_path, "s.csv", STUDY)
+    result = runner.invoke(app, ["fit", str(data), "--out", str(tmp_path / "fit"), option, value])
+    assert expected in one_line(result)
+    assert not (tmp_path / "fit").exists()
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "key"),
+    [
+        ("draws = 2000", "draws = 100000000", "sampler.draws"),
+        ("draws = 2000", "draws = 99999999999999999999", "draws"),
+        ("sigma = 2.5 }", "sigma = 1e300 }", "terms.part.scale_prior.sigma"),
+        ("sigma = 2.5 }", "sigma = 1e-300 }", "terms.part.scale_prior.sigma"),
+        ("mu = 0.0, sigma = 1.5", "mu = 1e200, sigma = 1.5", "intercept.prior.mu"),
+    ],
+)
+def test_spec_numbers_out_of_range_name_the_key(tmp_path, old, new, key):
+    text = (models_dir() / "crossed-logit.toml").read_text()
+    assert old in text
+    with pytest.raises(SpecError, match=key.replace(".", r"\.")):
+        parse_spec(text.replace(old, new, 1), "bad.toml")
+    spec = write(tmp_path, "bad.toml", text.replace(old, new, 1))
+    data = write(tmp_path, "s.csv", STUDY)
+    result = runner.invoke(
+        app, ["fit", str(data), "--out", str(tmp_path / "fit"), "--model", str(spec)]
+    )
+    assert key.split(".")[-1] in one_line(result)
+
+
+def test_memory_budget_refuses_with_the_figure(monkeypatch):
+    import bayes_rr.sampling as sampling
+
+    monkeypatch.setattr(sampling, "machine_memory_bytes", lambda: 24 * 2**30)
+    settings = SamplerSettings(draws=100_000, chains=4)
+    with pytest.raises(SpecError, match=r"need about \d+\.\d GiB, more than the 9\.6 GiB"):
+        check_memory(45, 3, 135, settings)
+    # the bundled default on the demo's size stays far inside the budget
+    default = SamplerSettings.from_spec(load_spec("crossed-logit"))
+    assert planned_memory_bytes(45, 3, 135, default) < 2**30
+    check_memory(45, 3, 135, default)
+
+
+def test_pairwise_statistics_beyond_the_limit_are_listed_as_not_computed():
+    count = MAX_PAIRWISE_APPRAISERS + 1
+    names = [f"A{j}" for j in range(count)]
+    n = [[2] * count, [2] * count]
+    s = [[j % 3 for j in range(count)], [1] * count]
+    study = study_from_cells(["P1", "P2"], names, n, [[min(v, 2) for v in r] for r in s])
+    result = classical_statistics(study)
+    assert result.appraiser_differences == ()
+    assert not [k for k in result.kappa if k.statistic == "cohen"]
+    reasons = [item["reason"] for item in result.not_computed]
+    assert any(f"{count} appraisers make {count * (count - 1) // 2} pairs" in r for r in reasons)
+    # below the limit they are all there
+    small = study_from_cells(["P1", "P2"], names[:3], [[2] * 3] * 2, [[0, 1, 2], [1, 1, 1]])
+    assert len(classical_statistics(small).appraiser_differences) == 3
