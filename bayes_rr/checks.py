@@ -239,7 +239,17 @@ def replicate(posterior: xr.Dataset, spec: ModelSpec, study: StudyData, seed: in
         a = (pi * phi)[:, part]
         b = ((1 - pi) * phi)[:, part]
         p = rng.beta(np.maximum(a, 1e-300), np.maximum(b, 1e-300))
-    else:  # pragma: no cover - the family table lists only these two
+    elif spec.family == "call_curve":
+        from bayes_rr.estimands import latent_draws
+
+        p_all = latent_draws(posterior, spec, study).p_study
+        p = p_all[:, cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()]
+    elif spec.family in ("reference_logit", "latent_class"):
+        from bayes_rr.wrong_calls import status_cell_probabilities
+
+        p_all = status_cell_probabilities(posterior, spec, study, rng)
+        p = p_all[:, cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()]
+    else:  # pragma: no cover - every family of the table has a branch
         raise DataError(f"no replication for family {spec.family!r}")
     return rng.binomial(n[None, :], p)
 
@@ -337,6 +347,14 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
 
     if len(named_idata) < 2:
         raise DataError("compare needs at least two fit folders")
+    units = {name: idata.log_likelihood["s"].dims[-1] for name, idata in named_idata.items()}
+    if len(set(units.values())) > 1:
+        listing = ", ".join(f"{k}: one term per {v}" for k, v in units.items())
+        raise DataError(
+            f"the fits' log likelihoods have different units ({listing}); LOO compares "
+            "models whose likelihoods leave out the same units (a latent class fit leaves "
+            "out a part, the other models a part-appraiser cell)"
+        )
     if len(set(data_hashes.values())) > 1:
         listing = ", ".join(f"{k}: {v[:12]}" for k, v in data_hashes.items())
         raise DataError(

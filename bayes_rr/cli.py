@@ -132,6 +132,8 @@ def read_options(
     drop_missing: bool,
     sheet: str | None,
     wide_column: list[str] | None = None,
+    lower_limit: float | None = None,
+    upper_limit: float | None = None,
 ) -> ReadOptions:
     columns = {
         role: name
@@ -166,6 +168,8 @@ def read_options(
         drop_missing=drop_missing,
         sheet=sheet,
         wide_columns=wide,
+        lower_limit=lower_limit,
+        upper_limit=upper_limit,
     )
 
 
@@ -232,6 +236,20 @@ def data_options(func):
             False,
         ),
         "sheet": (Annotated[str | None, Col("--sheet", help="Sheet of an XLSX workbook.")], None),
+        "lower_limit": (
+            Annotated[
+                float | None,
+                Col("--lower-limit", help="Lower specification limit of the reference value."),
+            ],
+            None,
+        ),
+        "upper_limit": (
+            Annotated[
+                float | None,
+                Col("--upper-limit", help="Upper specification limit of the reference value."),
+            ],
+            None,
+        ),
         "wide_column": (
             Annotated[
                 list[str] | None,
@@ -288,6 +306,8 @@ def main_callback(
 
 def print_description(result: dict) -> None:
     """Terminal tables of the design and the classical statistics."""
+    from bayes_rr.describe import reference_rows
+
     design = result["design"]
     prob = result["prob"]
     table = Table(title=f"Study design: {design['source']}", show_header=False)
@@ -307,6 +327,9 @@ def print_description(result: dict) -> None:
             else design[key]
         )
         table.add_row(label, str(value))
+        if key == "has_reference":
+            for row_label, text in reference_rows(design):
+                table.add_row(row_label, text)
     out.print(table)
     for note in design["notes"]:
         out.print(f"note: {note}")
@@ -419,13 +442,17 @@ def models() -> None:
     from bayes_rr.spec import bundled_models, load_spec
 
     table = Table(title="Bundled models (use with --model NAME, or give a path to your own)")
-    table.add_column("name")
-    table.add_column("family")
-    table.add_column("description")
+    table.add_column("name", no_wrap=True)
+    table.add_column("what it estimates")
+    table.add_column("suits")
     for name in bundled_models():
         spec = load_spec(name)
-        table.add_row(name, spec.family, spec.description)
+        table.add_row(name, spec.description, spec.suits)
     out.print(table)
+    out.print(
+        "Without --model, fit uses reference-logit when the data give each part's "
+        "reference status, and crossed-logit otherwise."
+    )
 
 
 def _in_terminal(quiet: bool) -> bool:
@@ -453,6 +480,11 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         out.print(f"warning: {warning}")
     prob = summary["prob"]
     kind = "HDI" if summary["interval"] == "hdi" else "equal-tailed"
+    if summary.get("wrong_calls"):
+        print_rates(summary)
+    if not any(r["level"] == "study" and r["key"] == "rr_variance" for r in summary["estimands"]):
+        _print_footer(summary, diag)
+        return
     table = Table(
         title=f"Study level, model {summary['model']['name']} "
         f"(posterior mean and {prob:.0%} {kind} interval)"
@@ -498,10 +530,14 @@ def print_fit(summary: dict, classical: dict | None) -> None:
             _num(corr.get(key), 4),
         )
     out.print(table)
-    for limitation in summary.get("limitations", []):
-        out.print(f"note: {limitation['sentence']}")
     for sentence in summary["readings"]:
         out.print(sentence)
+    _print_footer(summary, diag)
+
+
+def _print_footer(summary: dict, diag: dict) -> None:
+    for limitation in summary.get("limitations", []):
+        out.print(f"note: {limitation['sentence']}")
     out.print(
         f"r_hat max {diag['max_r_hat']:.3f}, ESS min bulk {diag['min_ess_bulk']:.0f} / "
         f"tail {diag['min_ess_tail']:.0f}, divergences {diag['divergences']}, "
@@ -509,10 +545,85 @@ def print_fit(summary: dict, classical: dict | None) -> None:
     )
 
 
+def _percent_interval(row: dict | None) -> str:
+    if row is None or row["mean"] is None:
+        return "-"
+    return f"{row['mean']:.1%} ({row['lower']:.1%}-{row['upper']:.1%})"
+
+
+def print_rates(summary: dict) -> None:
+    """The wrong-call rates first: in words, then per appraiser and for the system."""
+    wrong = summary["wrong_calls"]
+    if wrong.get("weak_identification"):
+        out.print(f"warning: {wrong['weak_identification']}", style="bold")
+    for sentence in wrong["readings"]:
+        out.print(sentence)
+    rows = {
+        (r["key"], r["scope"], r["level"], r["appraiser"]): r
+        for r in summary["estimands"]
+        if r["level"] in ("appraiser", "system")
+    }
+    prob = summary["prob"]
+    table = Table(title=f"Wrong calls, study's parts ({prob:.0%} intervals)")
+    table.add_column("appraiser")
+    table.add_column("false reject rate", justify="right")
+    table.add_column("false accept rate", justify="right")
+    table.add_column("agreement with status", justify="right")
+    names = [*summary["design"]["appraiser_names"], None]
+    for name in names:
+        level = "appraiser" if name else "system"
+        table.add_row(
+            name or "all appraisers",
+            *(_percent_interval(rows.get((key, "study", level, name)))
+              for key in ("false_reject_rate", "false_accept_rate", "reference_agreement")),
+        )  # fmt: skip
+    table.add_row(
+        "a new appraiser",
+        *(_percent_interval(rows.get((key, "population", "system", None)))
+          for key in ("false_reject_rate", "false_accept_rate", "reference_agreement")),
+    )  # fmt: skip
+    out.print(table)
+
+
+def default_model(study) -> tuple[str, str]:
+    """The model ``fit`` uses without ``--model``, and why, in a sentence."""
+    if study.reference is not None and study.reference.nunique() == 2:
+        return "reference-logit", (
+            "the data give each part's reference status, so the reference-logit model "
+            "estimates false reject and false accept rates (--model to choose another)"
+        )
+    if study.reference_value is not None and study.limits != (None, None):
+        return "call-curve", (
+            "the data give a measured reference value per part and a limit, so the "
+            "call-curve model estimates each appraiser's effective limit (--model to choose "
+            "another)"
+        )
+    return "crossed-logit", "model crossed-logit (--model to choose another)"
+
+
+def production_distribution(mean: float | None, sd: float | None, values: Path | None):
+    """The production distribution of the reference value given by the options, or None."""
+    from bayes_rr.curves import Production
+
+    if values is not None:
+        if mean is not None or sd is not None:
+            raise DataError("give --production-values or --production-mean/-sd, not both")
+        from bayes_rr.data import read_values
+
+        return Production(values=read_values(values))
+    if mean is None and sd is None:
+        return None
+    if mean is None or sd is None or not sd > 0:
+        raise DataError(
+            f"--production-mean {mean} --production-sd {sd}: give both, with a positive sd"
+        )
+    return Production(mean, sd)
+
+
 def run_fit(
     data: Path,
     options: ReadOptions,
-    model: str,
+    model: str | None,
     out_dir: Path,
     *,
     draws: int | None = None,
@@ -525,6 +636,7 @@ def run_fit(
     interval: str = "hdi",
     quiet: bool = False,
     overwrite: bool = False,
+    production=None,
 ) -> tuple[dict, dict]:
     """Read, fit, write; return summary.json's and classical.json's content (the library
     function behind 'fit').
@@ -542,7 +654,14 @@ def run_fit(
     if interval not in ("hdi", "eti"):
         raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
     check_output_dir(out_dir, overwrite, protected=(data,))
-    spec = load_spec(model)
+    if model is not None:
+        spec = load_spec(model)  # a bad spec is reported before the data are read
+    interrupts.checkpoint("reading", str(data))
+    study = read_study(data, options)
+    if model is None:
+        model, why = default_model(study)
+        out.print(f"model: {why}")
+        spec = load_spec(model)
     settings = SamplerSettings.from_spec(
         spec,
         draws=draws,
@@ -553,10 +672,8 @@ def run_fit(
         sampler=sampler,
         progress=_in_terminal(quiet),
     )
-    interrupts.checkpoint("reading", str(data))
-    study = read_study(data, options)
     classical = classical_statistics(study, prob).as_dict()
-    result = fit_study(study, spec, settings, prob=prob, interval=interval)
+    result = fit_study(study, spec, settings, prob=prob, interval=interval, production=production)
     interrupts.checkpoint("writing", str(out_dir))
     write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=(data,))
     return summary_document(result), classical
@@ -569,8 +686,13 @@ def fit(
     data: DataArg,
     out_dir: Annotated[Path, typer.Option("--out", help="Folder for the results (new or empty).")],
     model: Annotated[
-        str, typer.Option(help="Bundled model name (see 'bayes-rr models') or a spec file.")
-    ] = "crossed-logit",
+        str | None,
+        Col(
+            "--model",
+            help="Bundled model name (see 'bayes-rr models') or a spec file. Default: "
+            "reference-logit when the data give a reference status, else crossed-logit.",
+        ),
+    ] = None,
     # Ranges are checked by SamplerSettings (one line naming the limit), not by typer.
     draws: Annotated[
         int | None, Col("--draws", help=f"Draws per chain (10 to {MAX_DRAWS:,}).")
@@ -602,6 +724,18 @@ def fit(
             "--overwrite", help="Replace an earlier fit folder (never a folder of other files)."
         ),
     ] = False,
+    production_mean: Annotated[
+        float | None,
+        Col("--production-mean", help="call-curve: mean of the reference value in production."),
+    ] = None,
+    production_sd: Annotated[
+        float | None,
+        Col("--production-sd", help="call-curve: its standard deviation in production."),
+    ] = None,
+    production_values: Annotated[
+        Path | None,
+        Col("--production-values", help="call-curve: a CSV of measured production values."),
+    ] = None,
     options: ReadOptions | None = None,
 ) -> None:
     """Fit a Bayesian model to a study and write the results to a folder.
@@ -624,6 +758,7 @@ def fit(
         interval=interval,
         quiet=quiet,
         overwrite=overwrite,
+        production=production_distribution(production_mean, production_sd, production_values),
     )
     print_fit(summary, classical)
     out.print(f"results written to {out_dir}")
@@ -779,7 +914,7 @@ def demo(
             f"--out {out_dir}: {target} exists and is not the demo data; the demo never "
             "writes over a file; choose another --out folder"
         )
-    if not describe_only:
+    if not describe_only and out_dir.exists():
         check_output_dir(fit_dir, overwrite=True, protected=(target,))
     out_dir.mkdir(exist_ok=True)
     if not target.exists():
@@ -790,10 +925,8 @@ def demo(
         return
     from bayes_rr.pipeline import check_fit, report_fit
 
-    out.print(f"fitting the default model (crossed-logit) into {fit_dir} ...")
-    summary, classical = run_fit(
-        target, ReadOptions(), "crossed-logit", fit_dir, overwrite=True, quiet=quiet
-    )
+    out.print(f"fitting the default model into {fit_dir} ...")
+    summary, classical = run_fit(target, ReadOptions(), None, fit_dir, overwrite=True, quiet=quiet)
     print_fit(summary, classical)
     out.print("checking the model ...")
     print_checks(check_fit(fit_dir))

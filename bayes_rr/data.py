@@ -28,7 +28,17 @@ from bayes_rr.errors import DataError
 from bayes_rr.tables import RawTable, read_table
 
 MAX_CALLS = 1_000_000
-ROLES = ("part", "appraiser", "trial", "call", "reference", "reference_value")
+ROLES = (
+    "part",
+    "appraiser",
+    "trial",
+    "call",
+    "reference",
+    "reference_value",
+    "lower_limit",
+    "upper_limit",
+)
+PER_PART_ROLES = ("reference", "reference_value", "lower_limit", "upper_limit")
 
 # Column names recognised without an option, compared after lower-casing and
 # dropping everything but letters and digits.
@@ -50,6 +60,8 @@ COLUMN_SYNONYMS: dict[str, tuple[str, ...]] = {
         "referencevalue", "refvalue", "truevalue", "measuredvalue", "measurement", "mastervalue",
         "referencemeasurement",
     ),
+    "lower_limit": ("lowerlimit", "lsl", "lowerspec", "lowerspecificationlimit", "lowerlimitvalue"),
+    "upper_limit": ("upperlimit", "usl", "upperspec", "upperspecificationlimit", "upperlimitvalue"),
 }  # fmt: skip
 
 # Pairs of (accept, reject) labels recognised without an option. A study's
@@ -99,6 +111,9 @@ class ReadOptions:
         Sheet name of an XLSX file (default: the first sheet).
     wide_columns
         Explicit wide layout: column -> (appraiser, trial).
+    lower_limit, upper_limit
+        The specification limit(s) of the reference value (a part is bad below the
+        lower or above the upper limit); also read from columns of that name.
     """
 
     layout: Layout = "auto"
@@ -108,6 +123,8 @@ class ReadOptions:
     drop_missing: bool = False
     sheet: str | None = None
     wide_columns: Mapping[str, tuple[str, str]] | None = None
+    lower_limit: float | None = None
+    upper_limit: float | None = None
 
     def __post_init__(self) -> None:
         unknown = sorted(set(self.columns) - set(ROLES))
@@ -162,6 +179,8 @@ class StudyData:
     sha256: str
     notes: tuple[str, ...] = ()
     ignored_columns: tuple[str, ...] = ()
+    limits: tuple[float | None, float | None] = (None, None)
+    """(lower, upper) specification limits of the reference value; None where absent."""
 
     @property
     def n_calls(self) -> int:
@@ -194,6 +213,12 @@ class StudyData:
                 int(self.reference.sum()) if self.reference is not None else None
             ),
             "has_reference_value": self.reference_value is not None,
+            "reference_value_range": (
+                [float(self.reference_value.min()), float(self.reference_value.max())]
+                if self.reference_value is not None
+                else None
+            ),
+            "limits": {"lower": self.limits[0], "upper": self.limits[1]},
             "data_sha256": self.sha256,
             "ignored_columns": list(self.ignored_columns),
             "notes": list(self.notes),
@@ -413,7 +438,7 @@ def _to_long(
         # missing partner column is then about the tidy layout.
         tidy_like = found["call"] is not None or found["appraiser"] is not None
         layout = "tidy" if tidy_like else "wide"
-    extra = {found["reference"], found["reference_value"]} - {None}
+    extra = {found[role] for role in PER_PART_ROLES} - {None}
     rows = frame.index.to_numpy()
     positions = np.arange(len(frame))
     if layout == "tidy":
@@ -453,7 +478,7 @@ def _to_long(
             )
         long = pd.concat(pieces, ignore_index=True)
         used = [found["part"], *sorted(extra), *mapping]
-    for role in ("reference", "reference_value"):
+    for role in PER_PART_ROLES:
         col = found[role]
         long[role] = frame[col].to_numpy()[long["pos"].to_numpy()] if col else None
     return long.drop(columns="pos"), [c for c in used if c]
@@ -566,8 +591,39 @@ def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) 
     return values.groupby("part")[role].first()
 
 
+def _limits(
+    long: pd.DataFrame, source: str, options: ReadOptions
+) -> tuple[float | None, float | None]:
+    """The study's specification limits, from options or from constant columns."""
+    found = []
+    for role, given in (("lower_limit", options.lower_limit),
+                        ("upper_limit", options.upper_limit)):  # fmt: skip
+        from_data = None
+        if not long[role].isna().all():
+            values = pd.to_numeric(long[role].astype(str).str.strip(), errors="coerce")
+            if values.isna().any() or values.nunique() != 1:
+                seen = sorted(long[role].astype(str).str.strip().unique())[:5]
+                raise DataError(
+                    f"{source}: the {role.replace('_', ' ')} column must hold one number for "
+                    f"the whole study; found {seen}"
+                )
+            from_data = float(values.iloc[0])
+        if given is not None and from_data is not None and given != from_data:
+            raise DataError(
+                f"{source}: --{role.replace('_', '-')} {given:g} differs from the "
+                f"{role.replace('_', ' ')} {from_data:g} in the data; give one of them"
+            )
+        found.append(given if given is not None else from_data)
+    if None not in found and found[0] >= found[1]:
+        raise DataError(f"{source}: lower limit {found[0]:g} is not below upper limit {found[1]:g}")
+    return found[0], found[1]
+
+
 def study_hash(
-    calls: pd.DataFrame, reference: pd.Series | None, ref_value: pd.Series | None
+    calls: pd.DataFrame,
+    reference: pd.Series | None,
+    ref_value: pd.Series | None,
+    limits: tuple[float | None, float | None] = (None, None),
 ) -> str:
     """SHA-256 of a canonical text of the study (sorted, labels as 0/1)."""
     digest = hashlib.sha256()
@@ -579,6 +635,8 @@ def study_hash(
             digest.update(f"#{name}\n".encode())
             for part in sorted(series.index, key=natural_key):
                 digest.update(f"{part}\t{series[part]!r}\n".encode())
+    if limits != (None, None):
+        digest.update(f"#limits\t{limits[0]!r}\t{limits[1]!r}\n".encode())
     return digest.hexdigest()
 
 
@@ -590,6 +648,7 @@ def build_study(
     reference_value: pd.Series | None = None,
     notes: Sequence[str] = (),
     ignored_columns: Sequence[str] = (),
+    limits: tuple[float | None, float | None] = (None, None),
 ) -> StudyData:
     """Assemble :class:`StudyData` from validated calls (part, appraiser, trial, call 0/1)."""
     parts = tuple(sorted(long["part"].unique(), key=natural_key))
@@ -636,9 +695,10 @@ def build_study(
         reference=reference,
         reference_value=reference_value,
         source=source,
-        sha256=study_hash(calls, reference, reference_value),
+        sha256=study_hash(calls, reference, reference_value, limits),
         notes=tuple(notes),
         ignored_columns=tuple(ignored_columns),
+        limits=limits,
     )
 
 
@@ -675,6 +735,7 @@ def study_from_frame(
     long, call_notes = _validated_calls(long, options, source)
     reference = _per_part(long, "reference", source, options)
     reference_value = _per_part(long, "reference_value", source, options)
+    limits = _limits(long, source, options)
     ignored = tuple(c for c in frame.columns if c not in used)
     all_notes = [*notes, *call_notes]
     if ignored:
@@ -690,6 +751,7 @@ def study_from_frame(
         reference_value=reference_value,
         notes=all_notes,
         ignored_columns=ignored,
+        limits=limits,
     )
 
 
@@ -753,3 +815,24 @@ def study_from_cells(
     if reference is not None:
         ref = pd.Series(np.asarray(reference, dtype=np.int8), index=[str(p) for p in parts])
     return build_study(long, source=source, reference=ref)
+
+
+def read_values(path: str | Path) -> tuple[float, ...]:
+    """A column of numbers from a CSV or XLSX file (the column named ``value``, or the
+    only column): measured production values, for example."""
+    path = Path(path)
+    frame = read_table(path).frame
+    column = next((c for c in frame.columns if _norm_name(c) == "value"), None)
+    if column is None:
+        if frame.shape[1] != 1:
+            raise DataError(
+                f"{path}: {frame.shape[1]} columns {list(frame.columns)}; expected one column "
+                "of numbers, or a column named 'value'"
+            )
+        column = frame.columns[0]
+    text = frame[column].astype(str).str.strip()
+    numbers = pd.to_numeric(text[text != ""], errors="coerce")
+    if numbers.isna().any() or numbers.empty:
+        bad = text[text != ""][numbers.isna()].head(3).tolist()
+        raise DataError(f"{path}: column {column!r} holds non-numbers {bad}; expected numbers")
+    return tuple(float(v) for v in numbers)

@@ -27,3 +27,19 @@ def describe_file(
 ) -> dict:
     """Read, validate and describe a study file."""
     return describe_study(read_study(path, options), prob)
+
+
+def reference_rows(design: dict) -> list[tuple[str, str]]:
+    """(label, text) rows about the reference status, the reference values and the
+    limits, where the study has them (for the terminal and the report)."""
+    rows = []
+    if design.get("reference_reject_parts") is not None:
+        rows.append(("parts with reference status reject", str(design["reference_reject_parts"])))
+    span = design.get("reference_value_range")
+    if span:
+        rows.append(("reference values", f"{span[0]:g} to {span[1]:g}"))
+    for side in ("lower", "upper"):
+        value = (design.get("limits") or {}).get(side)
+        if value is not None:
+            rows.append((f"{side} specification limit", f"{value:g}"))
+    return rows

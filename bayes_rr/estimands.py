@@ -19,7 +19,7 @@ Keys and scopes (see estimands.md):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import xarray as xr
@@ -289,11 +289,20 @@ def _reference_shift(posterior: xr.Dataset, study: StudyData, n_draws: int) -> n
 
 @dataclass(frozen=True)
 class LatentDraws:
-    """Per-draw latent quantities of a fit, the input of every estimand."""
+    """Per-draw latent quantities of a fit, the input of every estimand.
 
-    p_study: np.ndarray  # (S, part, appraiser)
+    ``p_study`` is None for a family without call probabilities per cell (latent
+    class: the class of a part is summed out); ``extra`` holds family-specific
+    estimands, ``(scope, level, key) -> (draws, dim or None)``; ``log_lik_dim`` is the
+    unit of the log likelihood (``cell``, or ``part`` when the likelihood does not
+    factor over a part's cells).
+    """
+
+    p_study: np.ndarray | None  # (S, part, appraiser)
     population: dict[str, np.ndarray]  # per-part population decomposition, (S, part)
-    cell_log_lik: np.ndarray  # (S, cell): log P(s_ij | parameters), for LOO and checks
+    cell_log_lik: np.ndarray  # (S, cell or part): log P(calls | parameters), for LOO
+    extra: dict = field(default_factory=dict)
+    log_lik_dim: str = "cell"
 
 
 def part_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray:
@@ -413,14 +422,130 @@ def latent_beta_binomial(
     return LatentDraws(p, decompose_population_beta(pi, phi), log_lik)
 
 
-LATENT = {"logit": latent_logit, "beta_binomial": latent_beta_binomial}
+def _population_by_status(
+    eta_part: np.ndarray, status: np.ndarray, sigma_b: np.ndarray, sigma_c: np.ndarray,
+    split: bool,
+) -> dict[str, np.ndarray]:  # fmt: skip
+    """Population decomposition per part when the appraiser scale depends on the part's
+    status (``sigma_b`` (S, 2)): parts of each status are integrated with their scale."""
+    out: dict[str, np.ndarray] = {}
+    for r in (0, 1):
+        sel = np.flatnonzero(status == r)
+        if sel.size == 0:
+            continue
+        pieces = decompose_population_logit(
+            eta_part[:, sel], np.sqrt(sigma_b[:, r] ** 2 + sigma_c**2)
+        )
+        if split:
+            pieces.update(split_reproducibility_logit(eta_part[:, sel], sigma_b[:, r], sigma_c))
+        for key, values in pieces.items():
+            out.setdefault(key, np.empty(eta_part.shape))[:, sel] = values
+    return out
+
+
+def latent_reference_logit(
+    posterior: xr.Dataset, study: StudyData, rng: np.random.Generator
+) -> LatentDraws:
+    from bayes_rr.wrong_calls import (
+        rate_variables,
+        reference_logit_probabilities,
+        reference_logit_rates,
+    )
+
+    p, base, d = reference_logit_probabilities(posterior, study, rng)
+    status = study.reference.to_numpy().astype(int)
+    eta_part = d.intercept[:, status] + d.part_effect
+    split = "sigma_appraiser" in posterior and "sigma_interaction" in posterior
+    population = _population_by_status(
+        eta_part, status, d.sigma_appraiser, d.sigma_interaction, split
+    )
+    cells = study.cells
+    part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
+    n, k = cells["n"].to_numpy(), cells["s"].to_numpy()
+    if "interaction_effect" in posterior:
+        log_lik = integrated_cell_log_lik(base[:, part, app], d.sigma_interaction, n, k)
+    else:
+        eta_cell = base[:, part, app]
+        log_lik = _log_binom_coef(n, k) + k * log_expit(eta_cell) + (n - k) * log_expit(-eta_cell)
+    extra = rate_variables(reference_logit_rates(p, d, study))
+    return LatentDraws(p, population, log_lik, extra)
+
+
+def latent_latent_class(
+    posterior: xr.Dataset, study: StudyData, rng: np.random.Generator, spec: ModelSpec
+) -> LatentDraws:
+    from bayes_rr.wrong_calls import latent_class_rates
+
+    extra, part_log_lik = latent_class_rates(posterior, study)
+    return LatentDraws(None, {}, part_log_lik, extra, log_lik_dim="part")
+
+
+LATENT = {
+    "logit": latent_logit,
+    "beta_binomial": latent_beta_binomial,
+    "reference_logit": latent_reference_logit,
+}
+
+
+def latent_call_curve(
+    posterior: xr.Dataset, study: StudyData, spec: ModelSpec, production=None
+) -> LatentDraws:
+    """Call curves: call probabilities of the study's parts, the limits and widths per
+    appraiser and for the population, and (given a production distribution) the expected
+    false reject and false accept rates of each appraiser and of the system."""
+    from bayes_rr.curves import curve_probabilities, expected_rates
+    from bayes_rr.families.call_curve import curve_design
+
+    design = curve_design(study, spec.name)
+    limits = np.array([value for _, value, _ in design["sides"]])
+    signs = np.array([sign for _, _, sign in design["sides"]])
+    scale = design["scale"]
+    limit = _draws(posterior, "effective_limit")  # (S, appraiser, side)
+    width = _draws(posterior, "transition_width")  # (S, appraiser)
+    p = curve_probabilities(limit, width, design["x"], signs, spec.link)
+    cells = study.cells
+    part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
+    n, k = cells["n"].to_numpy(), cells["s"].to_numpy()
+    p_cell = np.clip(p[:, part, app], 1e-12, 1 - 1e-12)
+    log_lik = _log_binom_coef(n, k) + k * np.log(p_cell) + (n - k) * np.log1p(-p_cell)
+    bias_mean = _draws(posterior, "bias_mean")  # (S, side), standardised
+    spread = _optional(posterior, "sigma_limit", bias_mean.shape[:1])
+    log_width = _draws(posterior, "log_width_mean")
+    side = ("appraiser", "side")
+    extra = {
+        ("study", "appraiser", "effective_limit"): (limit, side),
+        ("study", "appraiser", "bias"): (limit - limits, side),
+        ("study", "appraiser", "transition_width"): (width, "appraiser"),
+        ("study", "system", "bias"): ((limit - limits).mean(axis=1), "side"),
+        ("study", "system", "limit_spread"): (limit.std(axis=1), "side"),
+        ("study", "system", "transition_width"): (width.mean(axis=1), None),
+        ("population", "system", "effective_limit"): (limits + scale * bias_mean, "side"),
+        ("population", "system", "bias"): (scale * bias_mean, "side"),
+        ("population", "system", "limit_spread"): (scale * spread, None),
+        ("population", "system", "transition_width"): (scale * np.exp(log_width), None),
+    }
+    if production is not None:
+        rates = expected_rates(limit, width, limits, signs, spec.link, production)
+        for key, values in rates.items():
+            extra[("study", "appraiser", key)] = (values, "appraiser")
+            extra[("study", "system", key)] = (values.mean(axis=1), None)
+    return LatentDraws(p, {}, log_lik, extra)
 
 
 def latent_draws(
-    posterior: xr.Dataset, spec: ModelSpec, study: StudyData, seed: int = 0
+    posterior: xr.Dataset, spec: ModelSpec, study: StudyData, seed: int = 0, production=None
 ) -> LatentDraws:
-    """Latent call probabilities, population decomposition and cell log likelihood."""
-    return LATENT[spec.family](posterior, study, np.random.default_rng(seed))
+    """Latent call probabilities, population decomposition and cell log likelihood.
+
+    ``production`` (a :class:`bayes_rr.curves.Production`) is used by the call curve
+    family only: it turns the curves into expected false accept and reject rates.
+    """
+    rng = np.random.default_rng(seed)
+    if spec.family == "latent_class":
+        return latent_latent_class(posterior, study, rng, spec)
+    if spec.family == "call_curve":
+        return latent_call_curve(posterior, study, spec, production)
+    return LATENT[spec.family](posterior, study, rng)
 
 
 def log_likelihood_dataset(
@@ -429,14 +554,18 @@ def log_likelihood_dataset(
     """The cell log likelihood as an ArviZ ``log_likelihood`` group (variable ``s``)."""
     chains, draws = posterior.sizes["chain"], posterior.sizes["draw"]
     cells = study.cells
-    labels = [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)]
+    if latent.log_lik_dim == "part":
+        labels = list(study.parts)
+    else:
+        labels = [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)]
     values = latent.cell_log_lik.reshape((chains, draws, -1))
+    dim = latent.log_lik_dim
     return xr.Dataset(
-        {"s": (("chain", "draw", "cell"), values)},
+        {"s": (("chain", "draw", dim), values)},
         coords={
             "chain": posterior["chain"].to_numpy(),
             "draw": posterior["draw"].to_numpy(),
-            "cell": labels,
+            dim: labels,
         },
     )
 
@@ -452,20 +581,24 @@ def compute_estimands(
     ``appraiser``; variable names are ``scope__level__key``."""
     chains, draws = posterior.sizes["chain"], posterior.sizes["draw"]
     latent = latent or latent_draws(posterior, spec, study, seed)
-    per_scope = {
-        "study": add_shares(decompose_study(latent.p_study), "study"),
-        "population": add_shares(latent.population, "population"),
-    }
+    per_scope = {}
+    if latent.p_study is not None:
+        per_scope["study"] = add_shares(decompose_study(latent.p_study), "study")
+    if latent.population:
+        per_scope["population"] = add_shares(latent.population, "population")
     coords = {
         "chain": posterior["chain"].to_numpy(),
         "draw": posterior["draw"].to_numpy(),
         "part": list(study.parts),
         "appraiser": list(study.appraisers),
     }
+    if "side" in posterior.coords:
+        coords["side"] = list(posterior["side"].to_numpy())
     variables: dict[str, xr.DataArray] = {}
 
-    def put(scope: str, level: str, key: str, values: np.ndarray, dim: str | None) -> None:
-        dims = ["chain", "draw"] + ([dim] if dim else [])
+    def put(scope: str, level: str, key: str, values: np.ndarray, dim) -> None:
+        extra_dims = [] if dim is None else [dim] if isinstance(dim, str) else list(dim)
+        dims = ["chain", "draw", *extra_dims]
         shaped = values.reshape((chains, draws, *values.shape[1:]))
         variables[variable_name(scope, level, key)] = xr.DataArray(
             shaped,
@@ -479,8 +612,10 @@ def compute_estimands(
             put(scope, "part", key, values, "part")
         for key, values in study_level(per_part, scope).items():
             put(scope, "study", key, values, None)
-    if spec.family == "logit":
+    if spec.family in ("logit", "reference_logit"):
         put("study", "appraiser", "call_rate", latent.p_study.mean(axis=1), "appraiser")
+    for (scope, level, key), (values, dim) in latent.extra.items():
+        put(scope, level, key, values, dim)
     return xr.Dataset(variables, attrs={"seed": seed, "family": spec.family})
 
 
@@ -556,6 +691,10 @@ def summarize(
             scope, lev, key = None, "parameter", name
         else:
             scope, lev, key = parse_variable_name(name)
+        # Dims other than part and appraiser (a parameter's status) name the row's key.
+        other = [f"{d}={v}" for d, v in where.items() if d not in ("part", "appraiser")]
+        if other:
+            key = f"{key}[{','.join(other)}]"
         values = dict.fromkeys(stats_, math.nan)
         note = None
         if undefined[k] > 0:

@@ -33,13 +33,26 @@ class TermInfo:
 
 @dataclass(frozen=True)
 class FamilyInfo:
-    """A model family: its terms, whether it has a concentration, and its description."""
+    """A model family: its terms, whether it has a concentration, and its description.
+
+    ``intercepts``: named priors the family takes in the spec's ``[intercept]`` table
+    instead of one ``prior`` (one per status of a part: ``accept_prior`` and
+    ``reject_prior``; a call curve's ``bias_prior`` and ``log_width_prior``), with their
+    defaults. ``has_prevalence``: a prior on the share of reject parts (``[prevalence]
+    prior``). ``has_curve``: a ``[curve] link`` choice. ``needs``: what the data must
+    hold (``"reference"``: a status per part; ``"reference_value"``: a measured value
+    per part and a specification limit).
+    """
 
     name: str
     description: str
     terms: dict[str, TermInfo]
     required_terms: tuple[str, ...]
     has_concentration: bool
+    intercepts: dict[str, Prior] | None = None
+    has_prevalence: bool = False
+    has_curve: bool = False
+    needs: tuple[str, ...] = ()
 
 
 INTERCEPT_PRIOR = _p("normal", mu=0.0, sigma=1.5)
@@ -80,6 +93,57 @@ REFERENCE_TERM = TermInfo(
     "normal(0, 3) on the logit difference between reference-reject and reference-accept "
     "parts: allows a working inspection (a difference of 4-8) without assuming it.",
 )
+STATUS_APPRAISER_TERM = TermInfo(
+    "appraiser",
+    "group",
+    _p("half_normal", sigma=1.0),
+    "half_normal(1) on each status's appraiser scale (accept parts, reject parts): an "
+    "appraiser's leaning on good parts and on bad parts may differ (one is strict, another "
+    "lenient); the two effects of an appraiser are correlated, with an LKJ(2) prior on "
+    "the correlation (mildly favouring small correlations; 2-4 appraisers cannot estimate "
+    "it well).",
+)
+ACCEPT_INTERCEPT_PRIOR = _p("normal", mu=-2.0, sigma=2.0)
+REJECT_INTERCEPT_PRIOR = _p("normal", mu=2.0, sigma=2.0)
+STATUS_INTERCEPT_WHY = (
+    "normal(-2, 2) on the logit of a typical appraiser's reject rate on a typical good "
+    "part, normal(2, 2) on a typical bad part: an inspection in use mostly accepts good "
+    "parts and rejects bad ones (prior median false reject and false accept rates 0.12), "
+    "but any rate from about 0.002 to 0.9 stays possible."
+)
+STATUS_INTERCEPTS = {"accept_prior": ACCEPT_INTERCEPT_PRIOR, "reject_prior": REJECT_INTERCEPT_PRIOR}
+PREVALENCE_PRIOR = _p("beta", alpha=1.0, beta=1.0)
+PREVALENCE_WHY = (
+    "beta(1, 1) on the share of reject parts among the study's parts: uniform, since "
+    "studies pick their share of bad parts on purpose."
+)
+# Call curve: everything on the scale of the reference values standardised by their
+# standard deviation in the study (so the defaults suit any unit).
+LIMIT_TERM = TermInfo(
+    "limit",
+    "group",
+    _p("half_normal", sigma=0.25),
+    "half_normal(0.25) on the spread of appraisers' effective limits, in standard "
+    "deviations of the study's reference values: appraisers rarely place the limit more "
+    "than half the parts' spread apart.",
+)
+WIDTH_TERM = TermInfo(
+    "width",
+    "group",
+    _p("half_normal", sigma=0.5),
+    "half_normal(0.5) on the spread of appraisers' log transition widths: one appraiser's "
+    "zone of inconsistent calls may be a few times another's.",
+)
+CURVE_INTERCEPTS = {
+    "bias_prior": _p("normal", mu=0.0, sigma=0.5),
+    "log_width_prior": _p("normal", mu=-2.0, sigma=1.0),
+}
+CURVE_INTERCEPTS_WHY = (
+    "normal(0, 0.5) on the typical appraiser's bias (effective limit minus the limit) in "
+    "standard deviations of the reference values; normal(-2, 1) on the log of the typical "
+    "transition width in the same units (median 0.14 sd, 95% range 0.02 to 0.95 sd)."
+)
+LINKS = ("logistic", "probit")
 CONCENTRATION_PRIOR = _p("beta", alpha=1.0, beta=3.0)
 CONCENTRATION_WHY = (
     "beta(1, 3) on rho = 1/(phi + 1), the share of a part's call variance due to "
@@ -101,6 +165,39 @@ FAMILIES: dict[str, FamilyInfo] = {
         {t.name: t for t in (PART_TERM, REFERENCE_TERM)},
         ("part",),
         True,
+    ),
+    "reference_logit": FamilyInfo(
+        "reference_logit",
+        "reference-aware logit: logit p_ij = mu_r(i) + a_i + b_j,r(i) + c_ij with the part's "
+        "known reference status r(i) (estimands.md family 3)",
+        {t.name: t for t in (PART_TERM, STATUS_APPRAISER_TERM, INTERACTION_TERM)},
+        (),
+        False,
+        intercepts=STATUS_INTERCEPTS,
+        needs=("reference",),
+    ),
+    "latent_class": FamilyInfo(
+        "latent_class",
+        "latent class: each part's status r(i) unknown, P(reject part) = theta, summed out "
+        "of the likelihood; logit p_ij = mu_r + a_i + b_j,r with mu_reject > mu_accept "
+        "(estimands.md family 4)",
+        {t.name: t for t in (PART_TERM, STATUS_APPRAISER_TERM)},
+        (),
+        False,
+        intercepts=STATUS_INTERCEPTS,
+        has_prevalence=True,
+    ),
+    "call_curve": FamilyInfo(
+        "call_curve",
+        "call curve: p_ij = F((x_i - t_j)/w_j) for a measured reference value x_i and a "
+        "specification limit, with each appraiser's effective limit t_j and transition "
+        "width w_j (estimands.md family 5)",
+        {t.name: t for t in (LIMIT_TERM, WIDTH_TERM)},
+        (),
+        False,
+        intercepts=CURVE_INTERCEPTS,
+        has_curve=True,
+        needs=("reference_value",),
     ),
 }
 

@@ -41,6 +41,12 @@ HYPER_PARAMETERS = (
     "sigma_interaction",
     "reference_effect",
     "rho",
+    "appraiser_correlation",
+    "prevalence",
+    "bias_mean",
+    "sigma_limit",
+    "log_width_mean",
+    "sigma_width",
 )
 PACKAGES = ("pymc", "pytensor", "nutpie", "arviz", "numpy", "scipy", "pandas", "xarray")
 
@@ -61,6 +67,9 @@ class FitResult:
     interval: str
     provenance: dict
     limitations: tuple[Limitation, ...] = ()
+    wrong_calls: dict | None = None
+    """Rates in words, appraisers who stand out, and (latent class) identification;
+    None for a model without wrong-call rates."""
 
 
 def package_versions() -> dict[str, str]:
@@ -100,8 +109,12 @@ def fit_study(
     *,
     prob: float = DEFAULT_PROB,
     interval: str = "hdi",
+    production=None,
 ) -> FitResult:
     """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
+
+    ``production`` (:class:`bayes_rr.curves.Production`, call curve family only) gives
+    the expected false reject and false accept rates in production.
 
     Refuses (``SpecError``) a run that would not fit in memory, before compiling.
     An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
@@ -112,7 +125,14 @@ def fit_study(
     from bayes_rr.families import build_model
     from bayes_rr.families.common import parameterizations
 
-    check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings)
+    if production is not None and spec.family != "call_curve":
+        from bayes_rr.errors import SpecError
+
+        raise SpecError(
+            f"a production distribution is used by the call-curve model only, not by "
+            f"{spec.name!r}; leave out the production options"
+        )
+    check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings, spec.family)
     started = datetime.now(UTC)
     interrupts.checkpoint("compiling", f"the {spec.name} model")
     t0 = time.perf_counter()
@@ -126,7 +146,7 @@ def fit_study(
     # (``*_log__``) are an implementation detail.
     posterior = idata.posterior[[v for v in idata.posterior.data_vars if not v.endswith("__")]]
     t0 = time.perf_counter()
-    latent = latent_draws(posterior, spec, study, seed=settings.seed)
+    latent = latent_draws(posterior, spec, study, seed=settings.seed, production=production)
     estimands = compute_estimands(posterior, spec, study, settings.seed, latent=latent)
     observed, constant = _observed_groups(study)
     idata = az.InferenceData(
@@ -143,6 +163,7 @@ def fit_study(
     estimand_rows = tuple(mark_limited(summarize(estimands, prob, interval), limitations))
     parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
     diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
+    wrong_calls = wrong_call_summary(estimands, estimand_rows, spec, prob, diagnostics.ok)
     timings["summaries_s"] = time.perf_counter() - t0
     provenance = {
         "started": started.isoformat(),
@@ -154,6 +175,7 @@ def fit_study(
         "spec_sha256": spec.sha256,
         "spec_text": spec.text,
         "parameterizations": parameterizations(spec, study),
+        "production": None if production is None else production.as_dict(),
         "seed": settings.seed,
         "sampler_settings": settings.as_dict(),
         "timings": timings,
@@ -173,7 +195,33 @@ def fit_study(
         interval=interval,
         provenance=provenance,
         limitations=limitations,
+        wrong_calls=wrong_calls,
     )
+
+
+def wrong_call_summary(estimands, rows, spec: ModelSpec, prob: float, ok: bool) -> dict | None:
+    """Readings of the false reject and false accept rates (None without such rates)."""
+    from dataclasses import asdict
+
+    from bayes_rr.jsonio import jsonable
+    from bayes_rr.wrong_calls import (
+        IDENTIFICATION_NOTE,
+        rate_readings,
+        standouts,
+        weak_identification,
+    )
+
+    if "study__system__false_reject_rate" not in estimands:
+        return None
+    found = standouts(estimands) if ok else []
+    rows = [jsonable(asdict(r)) for r in rows]
+    weak = weak_identification(estimands, prob) if spec.family == "latent_class" else None
+    return {
+        "readings": rate_readings(rows, found, prob) if ok else [],
+        "standouts": found,
+        "weak_identification": weak,
+        "identification": IDENTIFICATION_NOTE if spec.family == "latent_class" else None,
+    }
 
 
 def mark_limited(rows: list[SummaryRow], limitations) -> list[SummaryRow]:

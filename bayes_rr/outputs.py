@@ -233,6 +233,7 @@ def summary_document(result) -> dict:
             else "NOT CONVERGED: the numbers below are not to be used"
         ),
         "readings": plain_readings(rows, result.prob, limitations) if diagnostics["ok"] else [],
+        "wrong_calls": result.wrong_calls,
         "limitations": [lim.as_dict() for lim in limitations],
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],
@@ -323,10 +324,17 @@ def _remove_stale(out_dir: Path) -> None:
 
 
 def calls_table(study) -> pd.DataFrame:
-    """The study's calls as a tidy table (labels 0/1, reference 0/1 where known)."""
+    """The study's calls as a tidy table (labels 0/1, reference 0/1 where known, the
+    reference value and the limits where given)."""
     table = study.calls.copy()
     if study.reference is not None:
         table["reference"] = table["part"].map(study.reference).astype(int)
+    if study.reference_value is not None:
+        # repr keeps every digit, so the data hash matches when the folder is read back
+        table["reference_value"] = table["part"].map(study.reference_value).map(repr)
+    for role, limit in zip(("lower_limit", "upper_limit"), study.limits, strict=True):
+        if limit is not None:
+            table[role] = repr(float(limit))
     return table
 
 

@@ -16,6 +16,7 @@ from bayes_rr.checks import (
     compare_fits,
     posterior_predictive_check,
     prior_predictive,
+    thin,
 )
 from bayes_rr.errors import OutputError
 from bayes_rr.fit import HYPER_PARAMETERS
@@ -105,6 +106,8 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     figures["rank_plots"] = plots.rank_plots(hyper)
     if not summary["diagnostics"]["ok"]:
         return figures
+    if fit.spec.family == "call_curve":
+        figures["call_curves"] = _call_curve_figure(fit, n, s, prob)
     estimands = fit.idata["estimands"]
     draws = {
         key: estimands[f"study__study__{key}"].to_numpy().ravel()
@@ -123,6 +126,30 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     if checks is not None:
         figures["checks"] = plots.predictive_checks(checks["posterior_predictive"]["statistics"])
     return figures
+
+
+def _call_curve_figure(fit: LoadedFit, n: np.ndarray, s: np.ndarray, prob: float):
+    """Curve bands on a grid of reference values from up to 400 posterior draws."""
+    from bayes_rr import plots
+    from bayes_rr.curves import curve_probabilities
+    from bayes_rr.families.call_curve import curve_design
+
+    study = fit.study
+    design = curve_design(study, fit.spec.name)
+    signs = np.array([sign for _, _, sign in design["sides"]])
+    posterior = thin(fit.idata.posterior, 400, seed=0)
+    limit = posterior["effective_limit"].to_numpy()[0]
+    width = posterior["transition_width"].to_numpy()[0]
+    x = design["x"]
+    pad = 0.05 * (x.max() - x.min())
+    grid = np.linspace(x.min() - pad, x.max() + pad, 200)
+    p = curve_probabilities(limit, width, grid, signs, fit.spec.link)  # (S, G, J)
+    low, mid, high = np.quantile(p, [(1 - prob) / 2, 0.5, (1 + prob) / 2], axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = np.where(n > 0, s / np.maximum(n, 1), np.nan)
+    limits = [(name, value) for name, value, _ in design["sides"]]
+    return plots.call_curves(grid, mid.T, low.T, high.T, x, shares, list(study.appraisers),
+                             limits, prob)  # fmt: skip
 
 
 def report_fit(

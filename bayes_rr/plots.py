@@ -203,3 +203,40 @@ def rank_plots(draws: dict[str, np.ndarray]) -> Figure:
     axes[0, 0].legend(fontsize=6, frameon=False)
     fig.suptitle("Rank plots of the hyper-parameters (convergence)", fontsize=10)
     return fig
+
+
+def call_curves(
+    grid: np.ndarray,
+    median: np.ndarray,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    values: np.ndarray,
+    shares: np.ndarray,
+    appraisers: list[str],
+    limits: list[tuple[str, float]],
+    prob: float = 0.95,
+) -> Figure:
+    """Each appraiser's fitted call curve (median and ``prob`` band) over the observed share
+    of reject calls of each part, against the reference value; the limits dashed."""
+    count = len(appraisers)
+    cols = min(count, 3)
+    rows = -(-count // cols)
+    fig, axes = _new(3.0 * cols + 0.5, 2.6 * rows, rows, cols)
+    for j, name in enumerate(appraisers):
+        ax = axes[j // cols, j % cols]
+        ax.fill_between(grid, lower[j], upper[j], color="0.82", label=f"{prob:.0%} band")
+        ax.plot(grid, median[j], color="black", lw=1.2, label="fitted curve")
+        seen = np.isfinite(shares[:, j])
+        ax.plot(values[seen], shares[seen, j], "o", ms=3, mfc="white", mec=GREY,
+                label="observed share")  # fmt: skip
+        for side, value in limits:
+            ax.axvline(value, color=GREY, ls="--", lw=0.8)
+            ax.text(value, 1.02, f"{side} limit", ha="center", va="bottom", fontsize=7)
+        ax.set_ylim(-0.03, 1.08)
+        ax.set_title(name, fontsize=9)
+        ax.set_xlabel("reference value")
+        ax.set_ylabel("P(reject call)")
+    for k in range(count, rows * cols):
+        axes[k // cols, k % cols].set_visible(False)
+    axes[0, 0].legend(fontsize=7, loc="center right")
+    return fig

@@ -13,6 +13,8 @@ import html
 import io
 from dataclasses import dataclass, field
 
+from bayes_rr.describe import reference_rows
+
 CAUTIONS = (
     "Statistics support but do not replace the organisation's quality procedures, customer "
     "and regulatory requirements, and qualified judgement.",
@@ -131,13 +133,21 @@ def _findings(inputs: ReportInputs) -> str:
             "<p>The sampler did not pass the convergence gate, so this report gives no "
             "results. See the convergence section for the reasons and what to do.</p>"
         )
+    wrong = summary.get("wrong_calls") or {}
+    lead = ""
+    if wrong:
+        # The wrong-call rates come first: one item a sentence, then the table.
+        items = [wrong["weak_identification"]] if wrong.get("weak_identification") else []
+        items += list(wrong.get("readings", []))
+        lead = "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
+        lead += _rates_table(summary)
     sentences = [lim["sentence"] for lim in summary.get("limitations", [])]
     sentences += list(summary["readings"])
     checks = inputs.checks
     if checks is not None:
         ppc = checks["posterior_predictive"]
         sentences.append(f"Posterior predictive check: {ppc['verdict']}.")
-    return "<p>" + " ".join(esc(s) for s in sentences) + "</p>"
+    return lead + "<p>" + " ".join(esc(s) for s in sentences) + "</p>"
 
 
 def _study_section(inputs: ReportInputs) -> str:
@@ -152,6 +162,7 @@ def _study_section(inputs: ReportInputs) -> str:
                                           f"{design['trials_per_cell_max']}"],
         ["empty part x appraiser cells", esc(design["empty_cells"])],
         ["reference status known", "yes" if design["has_reference"] else "no"],
+        *[[esc(label), esc(text)] for label, text in reference_rows(design)],
         ["columns not used", esc(", ".join(design.get("ignored_columns", [])) or "none")],
         ["data SHA-256", f"<code>{esc(design['data_sha256'])}</code>"],
     ]  # fmt: skip
@@ -164,6 +175,86 @@ def _study_section(inputs: ReportInputs) -> str:
         _table(["item", "value"], rows)
         + (f"<p>Reading the data:</p><ul>{notes}</ul>" if notes else "")
         + grid
+    )
+
+
+RATE_COLUMNS = (
+    ("false_reject_rate", "false reject rate"),
+    ("false_accept_rate", "false accept rate"),
+    ("reference_agreement", "agreement with status"),
+)
+
+
+def _percent_interval(row: dict | None) -> str:
+    if row is None or row.get("mean") is None:
+        return "-"
+    return f"{row['mean']:.1%} ({row['lower']:.1%} to {row['upper']:.1%})"
+
+
+def _rates_table(summary: dict) -> str:
+    """Each appraiser's and the system's wrong-call rates with intervals."""
+    rows = {
+        (r["key"], r["scope"], r["level"], r["appraiser"]): r
+        for r in summary["estimands"]
+        if r["level"] in ("appraiser", "system")
+    }
+    body = []
+    for name in [*summary["design"]["appraiser_names"], None]:
+        level = "appraiser" if name else "system"
+        body.append([esc(name or "the study's appraisers together")] + [
+            _percent_interval(rows.get((key, "study", level, name))) for key, _ in RATE_COLUMNS
+        ])  # fmt: skip
+    body.append(["a new appraiser (population)"] + [
+        _percent_interval(rows.get((key, "population", "system", None))) for key, _ in RATE_COLUMNS
+    ])  # fmt: skip
+    prob = summary["prob"]
+    return (
+        f"<p>Wrong calls on the study's parts, posterior means with {prob:.0%} intervals. "
+        "False reject rate: the share of good parts called reject; false accept rate: the "
+        "share of bad parts called accept.</p>"
+        + _table(["appraiser", *(label for _, label in RATE_COLUMNS)], body, {1, 2, 3})
+    )
+
+
+CURVE_COLUMNS = (("effective_limit", "effective limit"), ("bias", "bias (effective - limit)"))
+
+
+def _value_interval(row: dict | None) -> str:
+    if row is None or row.get("mean") is None:
+        return "-"
+    return f"{row['mean']:.4g} ({row['lower']:.4g} to {row['upper']:.4g})"
+
+
+def _curve_table(summary: dict) -> str:
+    """Each appraiser's effective limit(s), bias and transition width, in the units of
+    the reference value."""
+    rows = {(r["key"], r["scope"], r["level"], r["appraiser"]): r for r in summary["estimands"]}
+    sides = sorted({r["key"].split("side=")[1].rstrip("]") for r in summary["estimands"]
+                    if r["key"].startswith("effective_limit[")})  # fmt: skip
+    header = ["appraiser"]
+    for side in sides:
+        header += [f"{label}, {side}" for _, label in CURVE_COLUMNS]
+    header.append("transition width")
+    body = []
+    for name in summary["design"]["appraiser_names"]:
+        cells = [esc(name)]
+        for side in sides:
+            cells += [_value_interval(rows.get((f"{key}[side={side}]", "study", "appraiser", name)))
+                      for key, _ in CURVE_COLUMNS]  # fmt: skip
+        cells.append(_value_interval(rows.get(("transition_width", "study", "appraiser", name))))
+        body.append(cells)
+    spread = [
+        f"{side}: "
+        + _value_interval(rows.get((f"limit_spread[side={side}]", "study", "system", None)))
+        for side in sides
+    ]
+    return (
+        "<p>Where each appraiser puts the limit (effective limit, with its bias from the "
+        "specification limit) and how wide the zone of inconsistent calls around it is "
+        "(transition width), in the units of the reference value; posterior means with "
+        f"intervals. Spread of the effective limits over these appraisers (reproducibility "
+        f"on the measurand's scale): {esc('; '.join(spread))}.</p>"
+        + _table(header, body, set(range(1, len(header))))
     )
 
 
@@ -182,6 +273,9 @@ def _model_section(inputs: ReportInputs) -> str:
             "reject on every part is not recognised as such. Per-appraiser results need "
             "the crossed-logit model.</p>"
         )
+    identification = (summary.get("wrong_calls") or {}).get("identification")
+    if identification:
+        parts.append(f"<p>{esc(identification)}</p>")
     parts.append("<p>The model specification, exactly as fitted:</p>")
     parts.append(f"<pre>{esc(run['spec_text'])}</pre>")
     prior = (inputs.checks or {}).get("prior_predictive")
@@ -289,7 +383,16 @@ def _results_section(inputs: ReportInputs) -> str:
                 _num(corr.get(key)),
             ]
         )
+    rates = []  # the wrong-call rates table stands in the first section
+    if inputs.figures.get("call_curves") is not None:
+        rates += [
+            _curve_table(summary),
+            figure_tag(inputs.figures["call_curves"], "each appraiser's call curve"),
+        ]
+    if not table_rows:  # a model with rates only (latent class)
+        return "".join(rates)
     parts = [
+        *rates,
         f"<p>Posterior means with {prob:.0%} {esc(kind)}s. Study scope: the appraisers in "
         "the study. Population scope: a new appraiser drawn from the same population. Both "
         "are averaged over the study's parts (which were chosen, not sampled).</p>",

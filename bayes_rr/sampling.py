@@ -82,22 +82,31 @@ def machine_memory_bytes() -> int:
         return 16 * 2**30
 
 
-def planned_memory_bytes(parts: int, appraisers: int, cells: int, settings: SamplerSettings) -> int:
+def planned_memory_bytes(
+    parts: int, appraisers: int, cells: int, settings: SamplerSettings, family: str = "logit"
+) -> int:
     """A generous estimate of the memory a fit of this size needs at its peak.
 
     Per draw: the parameters and their deterministic copies (about twice parts +
     appraisers + cells), every per-part estimand in both scopes (about 20 per part),
     the latent call probabilities and their temporaries (about 8 per part and
     appraiser) and the cell log likelihood; doubled for the copies made while
-    summarising and writing. Measured peaks stay below it.
+    summarising and writing. The latent class family keeps no per-part decomposition:
+    a part's reject probability and log likelihood, and two call probabilities per
+    part and appraiser. Measured peaks stay below it.
     """
-    per_draw = 2 * (parts + appraisers + cells) + 20 * parts + 8 * parts * appraisers + cells
+    if family == "latent_class":
+        per_draw = 2 * (parts + appraisers) + 3 * parts + 4 * parts * appraisers
+    else:
+        per_draw = 2 * (parts + appraisers + cells) + 20 * parts + 8 * parts * appraisers + cells
     return int(16 * per_draw * settings.draws * settings.chains)
 
 
-def check_memory(parts: int, appraisers: int, cells: int, settings: SamplerSettings) -> None:
+def check_memory(
+    parts: int, appraisers: int, cells: int, settings: SamplerSettings, family: str = "logit"
+) -> None:
     """Refuse, before anything is compiled, a fit that would not fit in memory."""
-    need = planned_memory_bytes(parts, appraisers, cells, settings)
+    need = planned_memory_bytes(parts, appraisers, cells, settings, family)
     budget = MEMORY_SHARE * machine_memory_bytes()
     if need > budget:
         raise SpecError(

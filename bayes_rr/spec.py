@@ -20,7 +20,9 @@ from bayes_rr.family_table import (
     CONCENTRATION_PRIOR,
     FAMILIES,
     INTERCEPT_PRIOR,
+    LINKS,
     PARAMETERIZATIONS,
+    PREVALENCE_PRIOR,
     SAMPLERS,
     SHARING,
 )
@@ -79,10 +81,27 @@ class ModelSpec:
     sampler: SamplerDefaults
     source: str
     text: str
+    intercepts: tuple[tuple[str, Prior], ...] = ()
+    """Named intercept priors of families that take them (``accept_prior``, ...)."""
+    link: str = "logistic"
+    """The call curve's F: ``logistic`` or ``probit``."""
+    prevalence: Prior | None = None
+    """Prior of the share of reject parts (latent class family)."""
+    suits: str = ""
+    """Which data the model suits, in a sentence (shown by 'bayes-rr models')."""
 
     @property
     def sha256(self) -> str:
         return hashlib.sha256(self.text.encode()).hexdigest()
+
+    @property
+    def status_intercepts(self) -> tuple[Prior, Prior]:
+        """(accept, reject) intercept priors of a status family."""
+        named = dict(self.intercepts)
+        return named["accept_prior"], named["reject_prior"]
+
+    def intercept_prior(self, name: str) -> Prior:
+        return dict(self.intercepts)[name]
 
     def term(self, name: str) -> TermSpec | None:
         return next((t for t in self.terms if t.name == name), None)
@@ -91,7 +110,18 @@ class ModelSpec:
         return self.term(name) is not None
 
 
-TOP_KEYS = {"name", "description", "family", "intercept", "terms", "concentration", "sampler"}
+TOP_KEYS = {
+    "name",
+    "description",
+    "suits",
+    "family",
+    "intercept",
+    "terms",
+    "concentration",
+    "prevalence",
+    "curve",
+    "sampler",
+}
 
 
 def _check_keys(table: dict, allowed: set[str], where: str, source: str) -> None:
@@ -203,16 +233,50 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
     name = raw.get("name")
     if not isinstance(name, str) or not name.strip():
         raise SpecError(f"{source}: name = {name!r}: expected a non-empty string")
-    description = raw.get("description", "")
-    if not isinstance(description, str):
-        raise SpecError(f"{source}: description = {description!r}: expected a string")
+    for key in ("description", "suits"):
+        if not isinstance(raw.get(key, ""), str):
+            raise SpecError(f"{source}: {key} = {raw[key]!r}: expected a string")
+    description, suits = raw.get("description", ""), raw.get("suits", "")
+    info = FAMILIES[family]
     intercept_table = _table(raw, "intercept", source, "")
-    _check_keys(intercept_table, {"prior"}, "[intercept]", source)
-    intercept = (
-        _prior(intercept_table["prior"], "intercept.prior", source, "real")
-        if "prior" in intercept_table
-        else INTERCEPT_PRIOR
-    )
+    intercept, intercepts = INTERCEPT_PRIOR, ()
+    if info.intercepts:
+        _check_keys(intercept_table, set(info.intercepts), "[intercept]", source)
+        intercepts = tuple(
+            (
+                key,
+                _prior(intercept_table[key], f"intercept.{key}", source, "real")
+                if key in intercept_table
+                else default,
+            )
+            for key, default in info.intercepts.items()
+        )
+    else:
+        _check_keys(intercept_table, {"prior"}, "[intercept]", source)
+        if "prior" in intercept_table:
+            intercept = _prior(intercept_table["prior"], "intercept.prior", source, "real")
+    prevalence = None
+    if info.has_prevalence:
+        table = _table(raw, "prevalence", source, "")
+        _check_keys(table, {"prior"}, "[prevalence]", source)
+        prevalence = (
+            _prior(table["prior"], "prevalence.prior", source, "unit")
+            if "prior" in table
+            else PREVALENCE_PRIOR
+        )
+    elif "prevalence" in raw:
+        raise SpecError(
+            f"{source}: [prevalence] is for the latent_class family, not {family!r}; remove it"
+        )
+    link = "logistic"
+    if info.has_curve:
+        table = _table(raw, "curve", source, "")
+        _check_keys(table, {"link"}, "[curve]", source)
+        link = table.get("link", link)
+        if link not in LINKS:
+            raise SpecError(f"{source}: curve.link = {link!r}: expected one of {list(LINKS)}")
+    elif "curve" in raw:
+        raise SpecError(f"{source}: [curve] is for the call_curve family, not {family!r}")
     concentration = None
     if FAMILIES[family].has_concentration:
         table = _table(raw, "concentration", source, "")
@@ -242,6 +306,10 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         sampler=_sampler(raw, source),
         source=source,
         text=text,
+        intercepts=intercepts,
+        link=link,
+        prevalence=prevalence,
+        suits=suits.strip(),
     )
 
 

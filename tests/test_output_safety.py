@@ -243,3 +243,16 @@ def test_check_output_dir_allows_a_new_or_empty_folder(tmp_path):
     (tmp_path / "empty").mkdir()
     check_output_dir(tmp_path / "empty")
     shutil.rmtree(tmp_path / "empty")
+
+
+def test_demo_checks_a_new_folder_without_creating_anything_first(tmp_path, monkeypatch):
+    # A new --out folder passes the checks (its fit folder is new too); the fit itself is
+    # stood in for: this test is about the order of the checks, not about sampling.
+    import bayes_rr.cli as cli
+
+    calls = []
+    monkeypatch.setattr(cli, "run_fit", lambda *a, **k: calls.append(a) or (_ for _ in ()).throw(
+        KeyboardInterrupt))  # fmt: skip
+    result = runner.invoke(app, ["demo", "--out", str(tmp_path / "new"), "--quiet"])
+    assert result.exit_code == 130 and calls, result.output
+    assert (tmp_path / "new" / "demo_study.csv").is_file()

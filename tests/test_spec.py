@@ -20,10 +20,30 @@ def test_every_bundled_spec_is_valid(path):
     spec = load_spec(path)
     assert spec.name == path.stem
     assert spec.family in FAMILIES
-    assert spec.description
-    assert spec.term("part") is not None
+    assert spec.description and spec.suits
     assert len(spec.sha256) == 64
     assert load_spec(path.stem) == spec  # by name and by path alike
+
+
+def _study_for(family: str):
+    from bayes_rr.simulate import simulate_call_curve, simulate_status_logit
+
+    if family == "call_curve":
+        return simulate_call_curve(12, 3, 2, seed=0).study
+    return simulate_status_logit(12, 3, 2, hide_reference=family == "latent_class", seed=0).study
+
+
+@pytest.mark.parametrize("path", BUNDLED, ids=lambda p: p.stem)
+def test_every_bundled_spec_builds_a_model_with_a_finite_log_density(path):
+    import numpy as np
+
+    from bayes_rr.families import build_model
+
+    spec = load_spec(path)
+    model = build_model(spec, _study_for(spec.family))
+    assert {"part", "appraiser", "cell"} <= set(model.coords)
+    logp = model.compile_logp(mode="NUMBA")(model.initial_point())
+    assert np.isfinite(logp)
 
 
 VALID = """

@@ -19,7 +19,13 @@ if TYPE_CHECKING:
     from bayes_rr.data import StudyData
     from bayes_rr.spec import ModelSpec
 
-_MODULES = {"logit": "bayes_rr.families.logit", "beta_binomial": "bayes_rr.families.beta_binomial"}
+_MODULES = {
+    "logit": "bayes_rr.families.logit",
+    "beta_binomial": "bayes_rr.families.beta_binomial",
+    "reference_logit": "bayes_rr.families.reference_logit",
+    "latent_class": "bayes_rr.families.latent_class",
+    "call_curve": "bayes_rr.families.call_curve",
+}
 
 
 def build_model(spec: ModelSpec, study: StudyData) -> pm.Model:

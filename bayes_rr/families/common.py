@@ -11,26 +11,25 @@ from bayes_rr.family_table import AUTO_MIN_LEVELS
 from bayes_rr.priors import Prior
 from bayes_rr.spec import ModelSpec, TermSpec
 
+PYMC_DISTRIBUTIONS = {
+    "normal": pm.Normal,
+    "student_t": pm.StudentT,
+    "half_normal": pm.HalfNormal,
+    "half_student_t": pm.HalfStudentT,
+    "exponential": pm.Exponential,
+    "gamma": pm.Gamma,
+    "beta": pm.Beta,
+}
+
 
 def pymc_prior(name: str, prior: Prior, **kwargs) -> pm.Distribution:
-    """The PyMC random variable for ``prior``."""
-    k = prior.kwargs
-    dist = prior.distribution
-    if dist == "normal":
-        return pm.Normal(name, mu=k["mu"], sigma=k["sigma"], **kwargs)
-    if dist == "student_t":
-        return pm.StudentT(name, nu=k["nu"], mu=k["mu"], sigma=k["sigma"], **kwargs)
-    if dist == "half_normal":
-        return pm.HalfNormal(name, sigma=k["sigma"], **kwargs)
-    if dist == "half_student_t":
-        return pm.HalfStudentT(name, nu=k["nu"], sigma=k["sigma"], **kwargs)
-    if dist == "exponential":
-        return pm.Exponential(name, lam=k["lam"], **kwargs)
-    if dist == "gamma":
-        return pm.Gamma(name, alpha=k["alpha"], beta=k["beta"], **kwargs)
-    if dist == "beta":
-        return pm.Beta(name, alpha=k["alpha"], beta=k["beta"], **kwargs)
-    raise ValueError(f"unknown distribution {dist!r}")  # the spec layer validated it
+    """The PyMC random variable for ``prior`` (the spec layer validated its parameters)."""
+    return PYMC_DISTRIBUTIONS[prior.distribution](name, **prior.kwargs, **kwargs)
+
+
+def pymc_prior_dist(prior: Prior, **kwargs):
+    """The unnamed PyMC distribution of ``prior`` (e.g. the sd_dist of a covariance)."""
+    return PYMC_DISTRIBUTIONS[prior.distribution].dist(**prior.kwargs, **kwargs)
 
 
 def calls_per_level(study: StudyData, term: str) -> np.ndarray:
@@ -65,13 +64,72 @@ def group_effect(name: str, scale, dims: str, parameterization: str):
     return pm.Deterministic(name, raw * scale, dims=dims)
 
 
+STATUSES = ("accept", "reject")
+"""The two statuses of a part (reference or latent), in this order everywhere."""
+APPRAISER_CORRELATION_ETA = 2.0
+"""LKJ shape of the correlation of an appraiser's effects on accept and reject parts."""
+
+
 def coords(study: StudyData) -> dict[str, list[str]]:
     cells = study.cells
     return {
         "part": list(study.parts),
         "appraiser": list(study.appraisers),
         "cell": [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)],
+        "status": list(STATUSES),
     }
+
+
+def status_intercepts(spec: ModelSpec, *, ordered: bool = False):
+    """Intercepts (accept, reject) with dims ``status``; ``ordered`` keeps reject > accept
+    (the latent class family's guard against label switching)."""
+    accept, reject = spec.status_intercepts  # type: ignore[misc]
+    if accept.distribution == reject.distribution == "normal" and ordered:
+        mus = [accept.kwargs["mu"], reject.kwargs["mu"]]
+        sigmas = [accept.kwargs["sigma"], reject.kwargs["sigma"]]
+        return pm.Normal(
+            "intercept",
+            mu=mus,
+            sigma=sigmas,
+            dims="status",
+            transform=pm.distributions.transforms.ordered,
+            initval=[min(mus[0], mus[1] - 1.0), max(mus[1], mus[0] + 1.0)],
+        )
+    if ordered:
+        raise ValueError("ordered status intercepts need normal priors")
+    low = pymc_prior("intercept_accept", accept)
+    high = pymc_prior("intercept_reject", reject)
+    return pm.Deterministic("intercept", pm.math.stack([low, high]), dims="status")
+
+
+def appraiser_by_status(term: TermSpec) -> tuple:
+    """(appraiser, status) effects, correlated within an appraiser, noncentered.
+
+    b_j,accept = s_0 z_j0 and b_j,reject = s_1 (rho z_j0 + sqrt(1 - rho^2) z_j1), with
+    the scales s from the term's prior and the correlation rho from an LKJ(eta) prior,
+    which for two effects is (rho + 1)/2 ~ Beta(eta, eta). (Written out rather than with
+    a Cholesky factor: the same model, easier geometry for the sampler with few
+    appraisers, and no matrix product to compile.) Returns the (accept, reject) effect
+    vectors; ``appraiser_effect`` (appraiser, status) is recorded as a deterministic.
+    """
+    scales = pymc_prior("sigma_appraiser", term.prior, dims="status")
+    half = pm.Beta("appraiser_correlation_unit", APPRAISER_CORRELATION_ETA,
+                   APPRAISER_CORRELATION_ETA)  # fmt: skip
+    rho = pm.Deterministic("appraiser_correlation", 2.0 * half - 1.0)
+    z = pm.Normal("appraiser_effect_z", 0.0, 1.0, dims=("appraiser", "status"))
+    accept = scales[0] * z[:, 0]
+    reject = scales[1] * (rho * z[:, 0] + pm.math.sqrt(1.0 - rho**2) * z[:, 1])
+    pm.Deterministic(
+        "appraiser_effect", pm.math.stack([accept, reject], axis=1), dims=("appraiser", "status")
+    )
+    return accept, reject
+
+
+def by_status(accept, reject, status: np.ndarray):
+    """Per element: ``accept`` where ``status`` is 0, ``reject`` where it is 1 (a constant
+    0/1 array); elementwise arithmetic, cheaper to compile than 2-D fancy indexing."""
+    weight = np.asarray(status, dtype=float)
+    return accept * (1.0 - weight) + reject * weight
 
 
 def reference_term(spec: ModelSpec, study: StudyData, part_index: np.ndarray):
