@@ -535,7 +535,13 @@ def print_fit(summary: dict, classical: dict | None) -> None:
     _print_footer(summary, diag)
 
 
+def print_criteria(summary: dict) -> None:
+    for row in summary.get("criteria", []):
+        out.print(f"criterion: {row['sentence']}", style=None if row["met"] else "bold")
+
+
 def _print_footer(summary: dict, diag: dict) -> None:
+    print_criteria(summary)
     for limitation in summary.get("limitations", []):
         out.print(f"note: {limitation['sentence']}")
     out.print(
@@ -637,6 +643,7 @@ def run_fit(
     quiet: bool = False,
     overwrite: bool = False,
     production=None,
+    criteria: Path | None = None,
 ) -> tuple[dict, dict]:
     """Read, fit, write; return summary.json's and classical.json's content (the library
     function behind 'fit').
@@ -654,6 +661,10 @@ def run_fit(
     if interval not in ("hdi", "eti"):
         raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
     check_output_dir(out_dir, overwrite, protected=(data,))
+    from bayes_rr.decisions import check_keys, load_criteria
+
+    wanted = load_criteria(criteria) if criteria is not None else ()
+    check_keys(wanted)
     if model is not None:
         spec = load_spec(model)  # a bad spec is reported before the data are read
     interrupts.checkpoint("reading", str(data))
@@ -673,7 +684,10 @@ def run_fit(
         progress=_in_terminal(quiet),
     )
     classical = classical_statistics(study, prob).as_dict()
-    result = fit_study(study, spec, settings, prob=prob, interval=interval, production=production)
+    result = fit_study(
+        study, spec, settings, prob=prob, interval=interval, production=production,
+        criteria=wanted,
+    )  # fmt: skip
     interrupts.checkpoint("writing", str(out_dir))
     write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=(data,))
     return summary_document(result), classical
@@ -736,6 +750,10 @@ def fit(
         Path | None,
         Col("--production-values", help="call-curve: a CSV of measured production values."),
     ] = None,
+    criteria: Annotated[
+        Path | None,
+        Col("--criteria", help="Acceptance criteria (TOML): each one's posterior probability."),
+    ] = None,
     options: ReadOptions | None = None,
 ) -> None:
     """Fit a Bayesian model to a study and write the results to a folder.
@@ -759,6 +777,7 @@ def fit(
         quiet=quiet,
         overwrite=overwrite,
         production=production_distribution(production_mean, production_sd, production_values),
+        criteria=criteria,
     )
     print_fit(summary, classical)
     out.print(f"results written to {out_dir}")
@@ -875,11 +894,16 @@ def report(
         bool,
         typer.Option("--overwrite", help="Replace an existing .html file not written by bayes-rr."),
     ] = False,
+    criteria: Annotated[
+        Path | None,
+        Col("--criteria", help="Acceptance criteria (TOML) to evaluate in the report."),
+    ] = None,
 ) -> None:
     """Write one self-contained HTML report of a fit (runs the checks if needed)."""
     from bayes_rr.pipeline import report_fit
 
-    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes, overwrite=overwrite)
+    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes, overwrite=overwrite,
+                      criteria=criteria)  # fmt: skip
     out.print(f"report written to {path}")
 
 

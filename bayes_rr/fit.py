@@ -70,6 +70,8 @@ class FitResult:
     wrong_calls: dict | None = None
     """Rates in words, appraisers who stand out, and (latent class) identification;
     None for a model without wrong-call rates."""
+    criteria: tuple[dict, ...] = ()
+    """Acceptance criteria with the probability that each is met (see decisions)."""
 
 
 def package_versions() -> dict[str, str]:
@@ -110,11 +112,13 @@ def fit_study(
     prob: float = DEFAULT_PROB,
     interval: str = "hdi",
     production=None,
+    criteria: tuple = (),
 ) -> FitResult:
     """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
 
     ``production`` (:class:`bayes_rr.curves.Production`, call curve family only) gives
-    the expected false reject and false accept rates in production.
+    the expected false reject and false accept rates in production. ``criteria``
+    (:class:`bayes_rr.decisions.Criterion`) are evaluated on the draws.
 
     Refuses (``SpecError``) a run that would not fit in memory, before compiling.
     An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
@@ -133,6 +137,10 @@ def fit_study(
             f"{spec.name!r}; leave out the production options"
         )
     check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings, spec.family)
+    if criteria:
+        from bayes_rr.decisions import check_keys
+
+        check_keys(criteria)
     started = datetime.now(UTC)
     interrupts.checkpoint("compiling", f"the {spec.name} model")
     t0 = time.perf_counter()
@@ -164,6 +172,11 @@ def fit_study(
     parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
     diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
     wrong_calls = wrong_call_summary(estimands, estimand_rows, spec, prob, diagnostics.ok)
+    criteria_rows = ()
+    if criteria:
+        from bayes_rr.decisions import evaluate_criteria
+
+        criteria_rows = tuple(evaluate_criteria(criteria, estimands))
     timings["summaries_s"] = time.perf_counter() - t0
     provenance = {
         "started": started.isoformat(),
@@ -196,6 +209,7 @@ def fit_study(
         provenance=provenance,
         limitations=limitations,
         wrong_calls=wrong_calls,
+        criteria=criteria_rows,
     )
 
 

@@ -161,6 +161,7 @@ def report_fit(
     notes: str | None = None,
     run_checks: bool = True,
     overwrite: bool = False,
+    criteria: str | Path | None = None,
 ) -> Path:
     """Write the HTML report of a fit (running the checks first when they are missing).
 
@@ -177,7 +178,18 @@ def report_fit(
         overwrite=overwrite,
         protected=tuple(folder / name for name in (*FILES, CHECKS_FILE)),
     )
+    wanted = ()
+    if criteria is not None:
+        from bayes_rr.decisions import check_keys, load_criteria
+
+        wanted = load_criteria(criteria)
+        check_keys(wanted)
     fit = load_fit(folder)
+    summary = fit.summary
+    if wanted and summary["diagnostics"]["ok"]:
+        from bayes_rr.decisions import evaluate_criteria
+
+        summary = {**summary, "criteria": evaluate_criteria(wanted, fit.idata["estimands"])}
     checks = load_checks(folder)
     if checks is None and run_checks:
         checks = check_fit(folder)
@@ -188,7 +200,7 @@ def report_fit(
     with literal_text():
         try:
             inputs = ReportInputs(
-                summary=fit.summary,
+                summary=summary,
                 run=fit.run,
                 classical=fit.classical,
                 checks=checks,

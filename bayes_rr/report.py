@@ -141,6 +141,13 @@ def _findings(inputs: ReportInputs) -> str:
         items += list(wrong.get("readings", []))
         lead = "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
         lead += _rates_table(summary)
+    if summary.get("criteria"):
+        lead += (
+            "<p>Acceptance criteria (thresholds set by the user's organisation, not "
+            "universal limits):</p><ul>"
+            + "".join(f"<li>{esc(row['sentence'])}</li>" for row in summary["criteria"])
+            + "</ul>"
+        )
     sentences = [lim["sentence"] for lim in summary.get("limitations", [])]
     sentences += list(summary["readings"])
     checks = inputs.checks

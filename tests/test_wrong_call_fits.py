@@ -45,9 +45,22 @@ def reference_run(tmp_path_factory):
     table["reference"] = table["part"].map(sim.study.reference).map({0: "pass", 1: "fail"})
     table["call"] = table["call"].map({0: "pass", 1: "fail"})
     table.to_csv(data, index=False)
+    criteria = folder / "criteria.toml"
+    criteria.write_text('[[criterion]]\nkey = "false_reject_rate"\nscope = "study"\n'
+                        "below = 0.5\nrequired_probability = 0.95\n")  # fmt: skip
     result = runner.invoke(app, ["fit", str(data), "--out", str(folder / "fit"),
-                                 "--draws", "1000", "--seed", "1", "--quiet"])  # fmt: skip
+                                 "--draws", "1000", "--seed", "1", "--quiet",
+                                 "--criteria", str(criteria)])  # fmt: skip
     return sim, folder / "fit", result
+
+
+def test_criteria_on_a_system_rate_are_evaluated_in_the_fit(reference_run):
+    _, folder, result = reference_run
+    (row,) = json.loads((folder / "summary.json").read_text())["criteria"]
+    assert row["key"] == "false_reject_rate" and row["probability"] == 1.0 and row["met"]
+    assert "criterion: false reject rate (study scope) is below 0.5" in " ".join(
+        result.stdout.split()
+    )
 
 
 def test_reference_fit_is_the_default_and_passes_the_gate(reference_run):
