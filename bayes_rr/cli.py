@@ -542,6 +542,8 @@ def print_criteria(summary: dict) -> None:
 
 def _print_footer(summary: dict, diag: dict) -> None:
     print_criteria(summary)
+    for sentence in (summary.get("comparisons") or {}).get("sentences", []):
+        out.print(f"appraisers: {sentence}")
     for limitation in summary.get("limitations", []):
         out.print(f"note: {limitation['sentence']}")
     out.print(

@@ -163,3 +163,116 @@ def evaluate_criteria(criteria: tuple[Criterion, ...], estimands: xr.Dataset) ->
         row.update(probability=probability, met=met, sentence=criterion.sentence(probability, met))
         rows.append(row)
     return rows
+
+
+# ---------------------------------------------------------------------------
+# appraisers compared
+
+COMPARED_KEYS = (
+    ("call_rate", "call rate"),
+    ("false_reject_rate", "false reject rate"),
+    ("false_accept_rate", "false accept rate"),
+)
+DIFFER_LEVEL = 0.95
+"""An appraiser differs from the rest when the posterior probability that their value is
+above (or below) every other appraiser's reaches this level."""
+
+
+def beyond_all_others(draws: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For draws (S, appraiser): each appraiser's posterior probability of being above
+    every other appraiser, and of being below every other. (Against the others' mean,
+    one outlier among three would make the other two stand out too.)"""
+    count = draws.shape[1]
+    above, below = np.empty(count), np.empty(count)
+    for j in range(count):
+        others = np.delete(draws, j, axis=1)
+        above[j] = np.mean((draws[:, [j]] > others).all(axis=1))
+        below[j] = np.mean((draws[:, [j]] < others).all(axis=1))
+    return above, below
+
+
+def _appraiser_draws(estimands: xr.Dataset, key: str) -> np.ndarray | None:
+    name = f"study__appraiser__{key}"
+    if name not in estimands:
+        return None
+    values = estimands[name].transpose("chain", "draw", "appraiser").to_numpy()
+    return values.reshape(-1, values.shape[-1])
+
+
+def _interval(values: np.ndarray, prob: float) -> tuple[float, float]:
+    low, high = np.quantile(values, [(1 - prob) / 2, (1 + prob) / 2])
+    return float(low), float(high)
+
+
+def compare_appraisers(
+    estimands: xr.Dataset, prob: float = 0.95, level: float = DIFFER_LEVEL
+) -> dict | None:
+    """The study's appraisers compared, from the posterior draws (study scope).
+
+    For each key in :data:`COMPARED_KEYS` the model gives: every pair's difference
+    (mean, equal-tailed interval, P(first > second)); and the appraisers whose value is
+    above (or below) every other appraiser's with posterior probability ``level`` or
+    more.
+    With per-appraiser repeatability, the probability that each appraiser is the most
+    consistent (the smallest repeatability variance, i.e. the least self-disagreement).
+    None with fewer than two appraisers or no per-appraiser estimands.
+    """
+    names = [str(a) for a in estimands["appraiser"].to_numpy()] if "appraiser" in estimands else []
+    if len(names) < 2:
+        return None
+    pairs, differ = [], []
+    for key, label in COMPARED_KEYS:
+        draws = _appraiser_draws(estimands, key)
+        if draws is None:
+            continue
+        for a in range(len(names)):
+            for b in range(a + 1, len(names)):
+                diff = draws[:, a] - draws[:, b]
+                low, high = _interval(diff, prob)
+                pairs.append({
+                    "key": key, "label": label, "appraiser": names[a], "other": names[b],
+                    "mean": float(diff.mean()), "lower": low, "upper": high,
+                    "probability_greater": float((diff > 0).mean()),
+                })  # fmt: skip
+        above, below = beyond_all_others(draws)
+        for j, name in enumerate(names):
+            for direction, share in (("above", above[j]), ("below", below[j])):
+                if share >= level:
+                    row = {"key": key, "label": label, "appraiser": name}
+                    differ.append({**row, "direction": direction, "probability": float(share)})
+    consistency = None
+    repeat = _appraiser_draws(estimands, "repeatability_variance")
+    if repeat is not None:
+        best = np.bincount(repeat.argmin(axis=1), minlength=len(names)) / repeat.shape[0]
+        consistency = {name: float(p) for name, p in zip(names, best, strict=True)}
+    if not pairs:
+        return None
+    return {
+        "prob": prob,
+        "level": level,
+        "pairs": pairs,
+        "differ": differ,
+        "most_consistent_probability": consistency,
+        "sentences": _comparison_sentences(differ, consistency, level),
+    }
+
+
+def _comparison_sentences(differ: list[dict], consistency: dict | None, level: float) -> list:
+    out = []
+    for row in differ:
+        out.append(
+            f"{row['appraiser']}'s {row['label']} is {row['direction']} every other "
+            f"appraiser's (posterior probability {row['probability']:.2f})."
+        )
+    if not differ:
+        out.append(
+            f"No appraiser is above or below all the others with posterior probability "
+            f"{level:g} or more."
+        )
+    if consistency:
+        best = max(consistency, key=consistency.get)
+        out.append(
+            f"Most consistent (least disagreement with their own repeat calls): {best}, with "
+            f"posterior probability {consistency[best]:.2f}."
+        )
+    return out

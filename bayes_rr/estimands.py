@@ -612,8 +612,12 @@ def compute_estimands(
             put(scope, "part", key, values, "part")
         for key, values in study_level(per_part, scope).items():
             put(scope, "study", key, values, None)
-    if spec.family in ("logit", "reference_logit"):
-        put("study", "appraiser", "call_rate", latent.p_study.mean(axis=1), "appraiser")
+    if spec.family in ("logit", "reference_logit", "call_curve"):
+        p = latent.p_study
+        put("study", "appraiser", "call_rate", p.mean(axis=1), "appraiser")
+        # each appraiser's own inconsistency: mean over the parts of p(1 - p)
+        put("study", "appraiser", "repeatability_variance", (p * (1 - p)).mean(axis=1),
+            "appraiser")  # fmt: skip
     for (scope, level, key), (values, dim) in latent.extra.items():
         put(scope, level, key, values, dim)
     return xr.Dataset(variables, attrs={"seed": seed, "family": spec.family})

@@ -72,6 +72,8 @@ class FitResult:
     None for a model without wrong-call rates."""
     criteria: tuple[dict, ...] = ()
     """Acceptance criteria with the probability that each is met (see decisions)."""
+    comparisons: dict | None = None
+    """The study's appraisers compared (see decisions.compare_appraisers)."""
 
 
 def package_versions() -> dict[str, str]:
@@ -172,6 +174,9 @@ def fit_study(
     parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
     diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
     wrong_calls = wrong_call_summary(estimands, estimand_rows, spec, prob, diagnostics.ok)
+    from bayes_rr.decisions import compare_appraisers
+
+    comparisons = compare_appraisers(estimands, prob) if diagnostics.ok else None
     criteria_rows = ()
     if criteria:
         from bayes_rr.decisions import evaluate_criteria
@@ -210,6 +215,7 @@ def fit_study(
         limitations=limitations,
         wrong_calls=wrong_calls,
         criteria=criteria_rows,
+        comparisons=comparisons,
     )
 
 

@@ -235,6 +235,7 @@ def summary_document(result) -> dict:
         "readings": plain_readings(rows, result.prob, limitations) if diagnostics["ok"] else [],
         "wrong_calls": result.wrong_calls,
         "criteria": list(result.criteria) if diagnostics["ok"] else [],
+        "comparisons": result.comparisons,
         "limitations": [lim.as_dict() for lim in limitations],
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],

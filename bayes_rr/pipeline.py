@@ -123,6 +123,8 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     figures["study_densities"] = plots.study_level_densities(draws, rows, classical, prob=prob)
     figures["per_part"] = plots.per_part_intervals(summary["estimands"], prob=prob)
     figures["appraisers"] = plots.appraiser_call_rates(summary["estimands"], prob=prob)
+    compared = summary.get("comparisons") or {}
+    figures["differences"] = plots.appraiser_differences(compared.get("pairs", []), prob=prob)
     if checks is not None:
         figures["checks"] = plots.predictive_checks(checks["posterior_predictive"]["statistics"])
     return figures

@@ -240,3 +240,21 @@ def call_curves(
         axes[k // cols, k % cols].set_visible(False)
     axes[0, 0].legend(fontsize=7, loc="center right")
     return fig
+
+
+def appraiser_differences(pairs: list[dict], prob: float = 0.95) -> Figure | None:
+    """Each pair's posterior difference with its interval, one row a pair, grouped by
+    quantity; zero dashed."""
+    if not pairs:
+        return None
+    fig, axes = _new(6.5, 0.35 * len(pairs) + 1.2)
+    ax = axes[0, 0]
+    y = np.arange(len(pairs))[::-1]
+    for k, row in enumerate(pairs):
+        ax.plot([row["lower"], row["upper"]], [y[k], y[k]], color="black", lw=1.2)
+        ax.plot(row["mean"], y[k], "o", color="black", ms=4)
+    ax.axvline(0, color=GREY, ls="--", lw=0.8)
+    ax.set_yticks(y, [f"{r['label']}: {r['appraiser']} - {r['other']}" for r in pairs],
+                  fontsize=7)  # fmt: skip
+    ax.set_xlabel(f"difference (posterior mean and {prob:.0%} interval)")
+    return fig

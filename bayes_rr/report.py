@@ -265,6 +265,47 @@ def _curve_table(summary: dict) -> str:
     )
 
 
+def _comparisons(inputs: ReportInputs) -> str:
+    """The appraisers compared: sentences, every pair's posterior difference beside the
+    classical interval for the difference of call rates, and the figure."""
+    compared = inputs.summary.get("comparisons")
+    if not compared:
+        return ""
+    classical = {
+        (d["appraiser"], d["other"]): d["intervals"][0]
+        for d in inputs.classical.get("appraiser_differences", [])
+    }
+    rows = []
+    for pair in compared["pairs"]:
+        newcombe = classical.get((pair["appraiser"], pair["other"]))
+        rows.append([
+            esc(pair["label"]),
+            f"{esc(pair['appraiser'])} - {esc(pair['other'])}",
+            f"{pair['mean']:+.3f} ({pair['lower']:+.3f} to {pair['upper']:+.3f})",
+            f"{pair['probability_greater']:.3f}",
+            f"{newcombe['lower']:+.3f} to {newcombe['upper']:+.3f}"
+            if newcombe and pair["key"] == "call_rate" else "-",
+        ])  # fmt: skip
+    prob = compared["prob"]
+    return (
+        "<h3>Appraisers compared</h3><ul>"
+        + "".join(f"<li>{esc(s)}</li>" for s in compared["sentences"])
+        + "</ul>"
+        + _table(
+            [
+                "quantity",
+                "pair",
+                f"difference ({prob:.0%} interval)",
+                "P(first is higher)",
+                "classical interval (Newcombe)",
+            ],
+            rows,
+            {2, 3, 4},
+        )
+        + figure_tag(inputs.figures.get("differences"), "pairwise differences of appraisers")
+    )
+
+
 def _model_section(inputs: ReportInputs) -> str:
     summary, run = inputs.summary, inputs.run
     model = summary["model"]
@@ -423,6 +464,7 @@ def _results_section(inputs: ReportInputs) -> str:
     appraisers = figure_tag(inputs.figures.get("appraisers"), "appraiser call rates")
     if appraisers:
         parts += ["<h3>Per appraiser</h3>", appraisers]
+    parts.append(_comparisons(inputs))
     parts.append("<h3>Classical statistics</h3>")
     parts.append(_classical_tables(classical))
     return "".join(parts)

@@ -39,8 +39,8 @@ IDENTIFICATION_NOTE = (
     "hard for all appraisers beyond what the part term allows)."
 )
 STANDOUT_PROBABILITY = 0.95
-"""An appraiser stands out when the posterior probability that their rate is above the
-mean of the other appraisers' rates reaches this level."""
+"""An appraiser stands out when the posterior probability that their rate is above every
+other appraiser's reaches this level."""
 
 
 def _draws(posterior: xr.Dataset, name: str) -> np.ndarray:
@@ -371,8 +371,10 @@ def status_cell_probabilities(
 
 
 def standouts(estimands: xr.Dataset, probability: float = STANDOUT_PROBABILITY) -> list[dict]:
-    """Appraisers whose study-scope rate is above the mean of the other appraisers' rates
-    with posterior probability at least ``probability`` (a lower rate is no concern)."""
+    """Appraisers whose study-scope rate is above every other appraiser's with posterior
+    probability at least ``probability`` (a lower rate is no concern)."""
+    from bayes_rr.decisions import beyond_all_others
+
     out = []
     for key in ("false_reject_rate", "false_accept_rate"):
         name = f"study__appraiser__{key}"
@@ -380,9 +382,7 @@ def standouts(estimands: xr.Dataset, probability: float = STANDOUT_PROBABILITY) 
             continue
         values = estimands[name].transpose("chain", "draw", "appraiser").to_numpy()
         values = values.reshape(-1, values.shape[-1])
-        total = values.sum(axis=1, keepdims=True)
-        others = (total - values) / (values.shape[1] - 1)
-        above = (values > others).mean(axis=0)
+        above, _ = beyond_all_others(values)
         for j, appraiser in enumerate(estimands["appraiser"].to_numpy()):
             if above[j] >= probability:
                 out.append({"appraiser": str(appraiser), "key": key, "direction": "higher",
@@ -433,8 +433,8 @@ def rate_readings(rows: list[dict], found: list[dict], prob: float) -> list[str]
         what = "good parts rejected" if item["key"] == "false_reject_rate" else (
             "bad parts accepted")  # fmt: skip
         out.append(
-            f"{item['appraiser']} stands out: a {item['direction']} share of {what} than the "
-            f"other appraisers' mean (posterior probability {item['probability']:.2f})."
+            f"{item['appraiser']} stands out: a {item['direction']} share of {what} than every "
+            f"other appraiser (posterior probability {item['probability']:.2f})."
         )
     return out
 

@@ -88,3 +88,54 @@ def test_report_criteria_sentence_and_unknown_key(fit_dirs, tmp_path):
     bad = runner.invoke(app, ["report", str(fit_dirs["crossed-logit"]), "--out", str(out),
                               "--criteria", str(criteria)])  # fmt: skip
     assert bad.exit_code == 2 and "happiness" in bad.stderr and "\n" not in bad.stderr.strip()
+
+
+def _estimands(call_rate, repeat=None):
+    import xarray as xr
+
+    ds = xr.Dataset(coords={"appraiser": [f"A{j + 1}" for j in range(call_rate.shape[-1])]})
+    ds["study__appraiser__call_rate"] = (("chain", "draw", "appraiser"), call_rate)
+    if repeat is not None:
+        ds["study__appraiser__repeatability_variance"] = (("chain", "draw", "appraiser"), repeat)
+    return ds
+
+
+def test_comparisons_on_hand_set_draws():
+    from bayes_rr.decisions import compare_appraisers
+
+    rng = np.random.default_rng(1)
+    rates = rng.normal([0.40, 0.42, 0.15], 0.03, size=(2, 400, 3))
+    repeat = rng.normal([0.10, 0.05, 0.12], 0.02, size=(2, 400, 3))
+    found = compare_appraisers(_estimands(rates, repeat))
+    assert [(d["appraiser"], d["direction"]) for d in found["differ"]] == [("A3", "below")]
+    pair = next(p for p in found["pairs"] if (p["appraiser"], p["other"]) == ("A1", "A3"))
+    diff = (rates[..., 0] - rates[..., 2]).ravel()
+    assert pair["mean"] == pytest.approx(diff.mean())  # numpy on the same draws
+    assert pair["probability_greater"] == pytest.approx((diff > 0).mean())
+    best = np.bincount(repeat.reshape(-1, 3).argmin(axis=1), minlength=3) / 800
+    assert list(found["most_consistent_probability"].values()) == pytest.approx(best)
+    alike = compare_appraisers(_estimands(rng.normal(0.4, 0.03, size=(2, 400, 3))))
+    assert alike["differ"] == [] and "No appraiser is above or below" in alike["sentences"][0]
+
+
+@pytest.mark.slow
+def test_a_lenient_appraiser_is_flagged_and_identical_ones_are_not():
+    from bayes_rr.decisions import compare_appraisers
+    from bayes_rr.fit import fit_study
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.simulate import simulate_status_logit
+    from bayes_rr.spec import load_spec
+
+    spec = load_spec("reference-logit")
+    lenient = np.array([[0.0, 0.0], [0.0, 0.0], [-2.5, -2.5]])
+    sim = simulate_status_logit(40, 3, 3, appraiser_effect=lenient, seed=11)
+    result = fit_study(sim.study, spec, SamplerSettings.from_spec(spec, draws=1000, seed=11))
+    flagged = {(d["key"], d["appraiser"], d["direction"]) for d in result.comparisons["differ"]}
+    assert ("call_rate", "A3", "below") in flagged
+    assert ("false_accept_rate", "A3", "above") in flagged
+    clean = 0
+    for seed in (21, 22, 23):
+        same = simulate_status_logit(40, 3, 3, appraiser_effect=np.zeros((3, 2)), seed=seed)
+        fitted = fit_study(same.study, spec, SamplerSettings.from_spec(spec, draws=1000, seed=seed))
+        clean += not compare_appraisers(fitted.estimands)["differ"]
+    assert clean >= 2  # none flagged at the 0.95 level in most seeds

@@ -120,6 +120,7 @@ def test_report_states_the_rates_first(reference_run, tmp_path):
     html = out.read_text()
     first_section = html[html.index("<section") : html.index("</section>")]
     assert "Of good parts, A1 rejects" in first_section
+    assert "Appraisers compared" in html and "classical interval (Newcombe)" in html
 
 
 @pytest.mark.slow
