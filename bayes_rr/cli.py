@@ -482,6 +482,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
     kind = "HDI" if summary["interval"] == "hdi" else "equal-tailed"
     if summary.get("wrong_calls"):
         print_rates(summary)
+    if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
+        print_curves(summary)
     if not any(r["level"] == "study" and r["key"] == "rr_variance" for r in summary["estimands"]):
         _print_footer(summary, diag)
         return
@@ -559,6 +561,34 @@ def _percent_interval(row: dict | None) -> str:
     return f"{row['mean']:.1%} ({row['lower']:.1%}-{row['upper']:.1%})"
 
 
+def _value(row: dict | None) -> str:
+    if row is None or row["mean"] is None:
+        return "-"
+    return f"{row['mean']:.4g} ({row['lower']:.4g} to {row['upper']:.4g})"
+
+
+def print_curves(summary: dict) -> None:
+    """Each appraiser's effective limit(s) and transition width (call-curve model)."""
+    rows = {(r["key"], r["scope"], r["level"], r["appraiser"]): r for r in summary["estimands"]}
+    keys = sorted({r["key"] for r in summary["estimands"] if r["key"].startswith("effective")})
+    table = Table(title="Where each appraiser puts the limit (units of the reference value)")
+    table.add_column("appraiser")
+    for key in keys:
+        table.add_column(key.replace("_", " ").replace("[side=", " (").replace("]", ")"))
+    table.add_column("transition width")
+    for name in summary["design"]["appraiser_names"]:
+        table.add_row(
+            name,
+            *(_value(rows.get((key, "study", "appraiser", name))) for key in keys),
+            _value(rows.get(("transition_width", "study", "appraiser", name))),
+        )
+    out.print(table)
+    for key in keys:
+        spread = rows.get((key.replace("effective_limit", "limit_spread"), "study", "system", None))
+        if spread is not None:
+            out.print(f"spread of the effective limits over these appraisers: {_value(spread)}")
+
+
 def print_rates(summary: dict) -> None:
     """The wrong-call rates first: in words, then per appraiser and for the system."""
     wrong = summary["wrong_calls"]
@@ -572,24 +602,24 @@ def print_rates(summary: dict) -> None:
         if r["level"] in ("appraiser", "system")
     }
     prob = summary["prob"]
+    columns = [
+        (key, label)
+        for key, label in (("false_reject_rate", "false reject rate"),
+                           ("false_accept_rate", "false accept rate"),
+                           ("reference_agreement", "agreement with status"))
+        if any(k[0] == key for k in rows)
+    ]  # fmt: skip
     table = Table(title=f"Wrong calls, study's parts ({prob:.0%} intervals)")
     table.add_column("appraiser")
-    table.add_column("false reject rate", justify="right")
-    table.add_column("false accept rate", justify="right")
-    table.add_column("agreement with status", justify="right")
-    names = [*summary["design"]["appraiser_names"], None]
-    for name in names:
-        level = "appraiser" if name else "system"
-        table.add_row(
-            name or "all appraisers",
-            *(_percent_interval(rows.get((key, "study", level, name)))
-              for key in ("false_reject_rate", "false_accept_rate", "reference_agreement")),
-        )  # fmt: skip
-    table.add_row(
-        "a new appraiser",
-        *(_percent_interval(rows.get((key, "population", "system", None)))
-          for key in ("false_reject_rate", "false_accept_rate", "reference_agreement")),
-    )  # fmt: skip
+    for _, label in columns:
+        table.add_column(label, justify="right")
+    lines = [(name or "all appraisers", "study", "appraiser" if name else "system", name)
+             for name in [*summary["design"]["appraiser_names"], None]]  # fmt: skip
+    lines.append(("a new appraiser", "population", "system", None))
+    for label, scope, level, name in lines:
+        cells = [_percent_interval(rows.get((key, scope, level, name))) for key, _ in columns]
+        if any(cell != "-" for cell in cells):  # a model may give no population rates
+            table.add_row(label, *cells)
     out.print(table)
 
 
