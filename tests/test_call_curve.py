@@ -102,3 +102,43 @@ def test_describe_shows_reference_values_and_limits(tmp_path):
         assert f"{label} │ {value} " in text
     clash = runner.invoke(app, ["describe", str(data), "--upper-limit", "11"])
     assert clash.exit_code == 2 and "differs" in clash.stderr
+
+
+def test_two_sided_expected_rates_against_numerical_integration():
+    # Reference: scipy.integrate.quad over the production density, side by side.
+    from scipy import integrate
+    from scipy.special import expit
+
+    low, high, t_low, t_high, w, mean, sd = 9.0, 11.0, 9.1, 10.8, 0.15, 10.0, 0.8
+    rates = expected_rates(np.array([[[t_low, t_high]]]), np.array([[w]]),
+                           np.array([low, high]), np.array([-1.0, 1.0]), "logistic",
+                           Production(mean, sd))  # fmt: skip
+
+    def reject(x):
+        return min(1.0, expit((t_low - x) / w) + expit((x - t_high) / w))
+
+    def density(x):
+        return stats.norm.pdf(x, mean, sd)
+
+    good = integrate.quad(density, low, high)[0]
+    frr = integrate.quad(lambda x: reject(x) * density(x), low, high, points=[t_low, t_high])[0]
+    bad_low = integrate.quad(lambda x: (1 - reject(x)) * density(x), mean - 9 * sd, low)[0]
+    bad_high = integrate.quad(lambda x: (1 - reject(x)) * density(x), high, mean + 9 * sd)[0]
+    assert rates["false_reject_rate"][0, 0] == pytest.approx(frr / good, abs=2e-4)
+    assert rates["false_accept_rate"][0, 0] == pytest.approx(
+        (bad_low + bad_high) / (1 - good), abs=2e-4
+    )
+
+
+def test_a_two_sided_study_builds_a_model_with_both_limits():
+    from bayes_rr.data import build_study
+    from bayes_rr.families import build_model
+    from bayes_rr.spec import load_spec
+
+    sim = simulate_call_curve(12, 2, 2, seed=3)
+    study = build_study(sim.study.calls, source="two-sided", limits=(8.5, 10.0),
+                        reference_value=sim.study.reference_value)  # fmt: skip
+    model = build_model(load_spec("call-curve"), study)
+    assert list(model.coords["side"]) == ["lower", "upper"]
+    logp = model.compile_logp(mode="NUMBA")(model.initial_point())
+    assert np.isfinite(logp)
