@@ -17,6 +17,7 @@ because the statistics are discrete); it is flagged below 0.025 or above 0.975.
 
 from __future__ import annotations
 
+import logging
 import warnings
 from dataclasses import dataclass
 
@@ -304,13 +305,33 @@ def prior_predictive(
     spec: ModelSpec, study: StudyData, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int = 0
 ) -> list[dict]:
     """What the priors alone imply for the study-level shares and disagreement probabilities
-    on this study's design (quantiles over prior draws)."""
+    on this study's design (quantiles over prior draws).
+
+    A spec that carries an earlier study has a prior with factors PyMC cannot draw
+    from directly: draws of the stated priors are resampled with weights
+    proportional to the factors (sampling importance resampling from four times as
+    many draws).
+    """
+    import dataclasses
+
     import pymc as pm
 
     from bayes_rr.families import build_model
 
-    with build_model(spec, study):
-        prior = pm.sample_prior_predictive(draws=draws, random_seed=seed).prior
+    stated = dataclasses.replace(spec, earlier=None)
+    extra = 4 if spec.earlier is not None else 1
+    # PyMC logs the variables it samples from the prior: noise here. (PyMC sets its
+    # logger's level when first imported, so it is imported before the change.)
+    logger = logging.getLogger("pymc")
+    level = logger.level
+    logger.setLevel(logging.WARNING)
+    try:
+        with build_model(stated, study):
+            prior = pm.sample_prior_predictive(draws=draws * extra, random_seed=seed).prior
+    finally:
+        logger.setLevel(level)
+    if spec.earlier is not None:
+        prior = _resample_earlier(prior, spec, draws, seed)
     estimands = compute_estimands(prior, spec, study, seed)
     rows = []
     for scope in ("study", "population"):
@@ -334,6 +355,19 @@ def prior_predictive(
                 }
             )
     return rows
+
+
+def _resample_earlier(prior, spec: ModelSpec, draws: int, seed: int):
+    """``draws`` of the stated priors' draws, resampled with the earlier study's factors as
+    weights."""
+    from bayes_rr.hyperpriors import log_prior
+
+    log_w = (log_prior(prior, spec) - log_prior(prior, spec, earlier=False)).ravel()
+    weights = np.exp(log_w - log_w.max())
+    rng = np.random.default_rng([seed, 7])
+    picked = rng.choice(weights.size, size=draws, p=weights / weights.sum())
+    out = prior.isel(draw=np.sort(picked))
+    return out.assign_coords(draw=np.arange(draws))
 
 
 # ---------------------------------------------------------------------------

@@ -437,6 +437,78 @@ def describe(
 
 @app.command()
 @handles_errors
+def prior(
+    statements: Annotated[
+        Path,
+        typer.Argument(
+            help="A TOML file of statements: the model to start from and, per [[statement]], "
+            "about (call_rate, false_reject_rate, false_accept_rate, appraiser_difference, "
+            "repeat_disagreement), typical, at_most or at_least, and optionally sure and at.",
+            show_default=False,
+        ),
+    ],
+    out_file: Annotated[
+        Path, typer.Option("--out", help="The model spec to write (a .toml file).")
+    ],
+    data: Annotated[
+        Path | None,
+        Col("--data", help="A study whose design the prior predictive check uses."),
+    ] = None,
+    overwrite: Annotated[
+        bool, typer.Option("--overwrite", help="Replace an existing .toml file.")
+    ] = False,
+) -> None:
+    """Turn statements about the inspection into priors and write a model spec.
+
+    Each statement's prior matches its typical value (median) and its bound exactly;
+    the table shows both, checked by sampling from the prior. With --data, the
+    prior predictive check of the new spec on that study's design follows. Fit with
+    'bayes-rr fit DATA --model OUT.toml'.
+    """
+    from bayes_rr.pipeline import write_prior
+
+    spec, rows = write_prior(statements, out_file, overwrite=overwrite)
+    table = Table(
+        title=f"Priors from statements, model {spec.name}",
+        caption="bound: the value the quantity stays under (at_most) or over (at_least) "
+        "with the stated probability; the prior's figures come from 20,000 prior draws",
+    )
+    table.add_column("about", no_wrap=True)
+    table.add_column("median: stated", no_wrap=True, justify="right")
+    table.add_column("prior", no_wrap=True, justify="right")
+    table.add_column("bound: stated", no_wrap=True, justify="right")
+    table.add_column("prior", no_wrap=True, justify="right")
+    for row in rows:
+        table.add_row(
+            row["about"].replace("_", " "),
+            f"{row['typical']:.3g}",
+            f"{row['implied_median']:.3g}",
+            f"{row['bound']:.3g} ({row['sure']:g})",
+            f"{row['implied_bound_quantile']:.3g}",
+        )
+    out.print(table)
+    for row in rows:
+        out.print(f"{row['about']} sets {row['sets']} = {row['prior']}")
+    if data is not None:
+        from bayes_rr.checks import prior_predictive
+        from bayes_rr.data import read_study
+
+        study = read_study(data, ReadOptions())
+        prior_rows = prior_predictive(spec, study)
+        check = Table(title=f"What the priors imply for the design of {data.name}")
+        check.add_column("quantity", no_wrap=True)
+        check.add_column("scope", no_wrap=True)
+        check.add_column("median", no_wrap=True)
+        check.add_column("95% range", no_wrap=True)
+        for row in prior_rows:
+            check.add_row(row["key"].replace("_", " "), row["scope"], f"{row['median']:.3f}",
+                          f"{row['q025']:.3f} to {row['q975']:.3f}")  # fmt: skip
+        out.print(check)
+    out.print(f"model spec written to {out_file}; fit with: bayes-rr fit DATA --model {out_file}")
+
+
+@app.command()
+@handles_errors
 def models() -> None:
     """List the bundled model specifications."""
     from bayes_rr.spec import bundled_models, load_spec
@@ -548,11 +620,36 @@ def _print_footer(summary: dict, diag: dict) -> None:
         out.print(f"appraisers: {sentence}")
     for limitation in summary.get("limitations", []):
         out.print(f"note: {limitation['sentence']}")
+    from bayes_rr.sensitivity import HEADLINE_KEYS, sentences
+
+    earlier = summary.get("prior_from")
+    block = summary.get("prior_sensitivity") or {}
+    for sentence in sentences(block, bool(earlier), HEADLINE_KEYS):
+        out.print(f"prior: {sentence}")
+    if earlier:
+        out.print(f"earlier study: {earlier_sentence(earlier)}")
     out.print(
         f"r_hat max {diag['max_r_hat']:.3f}, ESS min bulk {diag['min_ess_bulk']:.0f} / "
         f"tail {diag['min_ess_tail']:.0f}, divergences {diag['divergences']}, "
         f"E-BFMI min {diag['min_bfmi']:.2f}"
     )
+
+
+def earlier_sentence(block: dict) -> str:
+    """The earlier study carried in, and how closely its approximation follows it."""
+    rows = block["parameters"]
+    carried = [r for r in rows if r["carried"]]
+    text = (
+        f"the fit {block['fit']} carried in as prior with weight {block['weight']:g}; "
+        f"{len(carried)} of {len(rows)} hyper-parameters carried"
+    )
+    if rows:
+        worst = max(rows, key=lambda r: r["quantile_gap"])
+        text += (
+            f"; the approximation's largest quantile gap is {worst['quantile_gap']:.3f} "
+            f"({worst['label']})"
+        )
+    return text + "."
 
 
 def _percent_interval(row: dict | None) -> str:
@@ -676,12 +773,19 @@ def run_fit(
     overwrite: bool = False,
     production=None,
     criteria: Path | None = None,
+    prior_from: Path | None = None,
+    prior_weight: float = 1.0,
 ) -> tuple[dict, dict]:
     """Read, fit, write; return summary.json's and classical.json's content (the library
     function behind 'fit').
 
     The output folder is checked before anything is read, so a run never samples
     only to find that it cannot write, or would replace what it must not.
+
+    ``prior_from`` (an earlier fit folder) carries that fit's posterior in as prior,
+    discounted by ``prior_weight``; the earlier fit's model is used unless ``model``
+    names one of the same family and terms, and its criteria unless ``criteria`` is
+    given.
     """
     from bayes_rr.classical import classical_statistics
     from bayes_rr.data import read_study
@@ -692,16 +796,35 @@ def run_fit(
 
     if interval not in ("hdi", "eti"):
         raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
-    check_output_dir(out_dir, overwrite, protected=(data,))
-    from bayes_rr.decisions import check_keys, load_criteria
+    protected = (data,) if prior_from is None else (data, prior_from)
+    check_output_dir(out_dir, overwrite, protected=protected)
+    from bayes_rr.decisions import check_keys, criteria_from_rows, load_criteria
 
     wanted = load_criteria(criteria) if criteria is not None else ()
     check_keys(wanted)
     if model is not None:
         spec = load_spec(model)  # a bad spec is reported before the data are read
+    earlier = None
+    if prior_from is not None:
+        from bayes_rr.earlier import as_dict, prior_from_fit
+        from bayes_rr.outputs import load_fit
+
+        loaded = load_fit(prior_from)
+        spec, approximations = prior_from_fit(
+            loaded, prior_weight, load_spec(model) if model is not None else None
+        )
+        earlier = as_dict(spec.earlier, approximations)
+        out.print(
+            f"model: {spec.name}, with the earlier fit {prior_from} as prior "
+            f"(weight {prior_weight:g})"
+        )
+        if criteria is None and loaded.summary.get("criteria"):
+            wanted = criteria_from_rows(loaded.summary["criteria"], str(prior_from))
+            check_keys(wanted)
+            out.print(f"criteria: the {len(wanted)} of the earlier fit")
     interrupts.checkpoint("reading", str(data))
     study = read_study(data, options)
-    if model is None:
+    if model is None and prior_from is None:
         model, why = default_model(study)
         out.print(f"model: {why}")
         spec = load_spec(model)
@@ -718,10 +841,10 @@ def run_fit(
     classical = classical_statistics(study, prob).as_dict()
     result = fit_study(
         study, spec, settings, prob=prob, interval=interval, production=production,
-        criteria=wanted,
+        criteria=wanted, prior_from=earlier,
     )  # fmt: skip
     interrupts.checkpoint("writing", str(out_dir))
-    write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=(data,))
+    write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=protected)
     return summary_document(result), classical
 
 
@@ -786,6 +909,14 @@ def fit(
         Path | None,
         Col("--criteria", help="Acceptance criteria (TOML): each one's posterior probability."),
     ] = None,
+    prior_from: Annotated[
+        Path | None,
+        Col("--prior-from", help="An earlier fit folder whose posterior becomes the prior."),
+    ] = None,
+    prior_weight: Annotated[
+        float,
+        Col("--prior-weight", help="Weight of the earlier study, in (0, 1]; 1 = in full."),
+    ] = 1.0,
     options: ReadOptions | None = None,
 ) -> None:
     """Fit a Bayesian model to a study and write the results to a folder.
@@ -810,6 +941,8 @@ def fit(
         overwrite=overwrite,
         production=production_distribution(production_mean, production_sd, production_values),
         criteria=criteria,
+        prior_from=prior_from,
+        prior_weight=prior_weight,
     )
     print_fit(summary, classical)
     out.print(f"results written to {out_dir}")

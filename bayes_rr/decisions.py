@@ -111,6 +111,26 @@ def load_criteria(path: str | Path) -> tuple[Criterion, ...]:
     return parse_criteria(text, path.name)
 
 
+def criteria_from_rows(rows: list[dict], source: str) -> tuple[Criterion, ...]:
+    """The criteria an earlier fit was judged by, rebuilt from its summary.json rows."""
+    out = []
+    for row in rows:
+        side = "below" if "below" in row else "above"
+        try:
+            required = float(row["required_probability"])
+            criterion = Criterion(
+                str(row["key"]), str(row["scope"]), float(row[side]), side, required,
+                str(row.get("label", "")),
+            )  # fmt: skip
+            out.append(criterion)
+        except (KeyError, TypeError, ValueError):
+            raise SpecError(
+                f"{source}: a criterion of the earlier fit cannot be read back ({row!r}); "
+                "give the criteria again with --criteria"
+            ) from None
+    return tuple(out)
+
+
 def check_keys(criteria: tuple[Criterion, ...]) -> None:
     """Refuse, before any sampling, a criterion whose key no model gives."""
     from bayes_rr.estimands import STUDY_KEYS

@@ -74,6 +74,10 @@ class FitResult:
     """Acceptance criteria with the probability that each is met (see decisions)."""
     comparisons: dict | None = None
     """The study's appraisers compared (see decisions.compare_appraisers)."""
+    prior_sensitivity: dict | None = None
+    """Power-scaling prior sensitivity of the study- and system-level results."""
+    prior_from: dict | None = None
+    """The earlier study carried in as prior and how well it was approximated."""
 
 
 def package_versions() -> dict[str, str]:
@@ -115,12 +119,14 @@ def fit_study(
     interval: str = "hdi",
     production=None,
     criteria: tuple = (),
+    prior_from: dict | None = None,
 ) -> FitResult:
     """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
 
     ``production`` (:class:`bayes_rr.curves.Production`, call curve family only) gives
     the expected false reject and false accept rates in production. ``criteria``
-    (:class:`bayes_rr.decisions.Criterion`) are evaluated on the draws.
+    (:class:`bayes_rr.decisions.Criterion`) are evaluated on the draws. ``prior_from``
+    (:func:`bayes_rr.earlier.as_dict`) records the earlier study a spec carries.
 
     Refuses (``SpecError``) a run that would not fit in memory, before compiling.
     An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
@@ -177,6 +183,9 @@ def fit_study(
     from bayes_rr.decisions import compare_appraisers
 
     comparisons = compare_appraisers(estimands, prob) if diagnostics.ok else None
+    from bayes_rr.sensitivity import prior_sensitivity
+
+    sensitivity = prior_sensitivity(posterior, estimands, idata.log_likelihood, spec)
     criteria_rows = ()
     if criteria:
         from bayes_rr.decisions import evaluate_criteria
@@ -216,6 +225,8 @@ def fit_study(
         wrong_calls=wrong_calls,
         criteria=criteria_rows,
         comparisons=comparisons,
+        prior_sensitivity=sensitivity,
+        prior_from=prior_from,
     )
 
 

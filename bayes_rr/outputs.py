@@ -9,6 +9,8 @@ complete. Files:
 * ``summary.json`` / ``summary.csv``: the posterior summaries;
 * ``run.json``: provenance (data and spec hashes, spec text, versions, seed,
   sampler settings, timings);
+* ``model.toml``: the model spec as fitted, priors included (an earlier study carried
+  in as prior among them), reusable with ``bayes-rr fit --model``;
 * ``classical.json``: the classical statistics of the same data;
 * ``calls.csv``: the validated calls (1 = reject) the model was fitted to, so the
   later steps rebuild exactly the same study (its hash is checked on loading);
@@ -60,6 +62,7 @@ FILES = (
     "run.json",
     "classical.json",
     "calls.csv",
+    "model.toml",
     MARKER,
 )
 
@@ -165,6 +168,7 @@ def written_by_toolkit(path: Path) -> bool:
     return (
         f'name="generator" content="{GENERATOR}'.encode() in head
         or f'"generator": "{GENERATOR}'.encode() in head
+        or f"# generator: {GENERATOR}".encode() in head
     )
 
 
@@ -236,6 +240,8 @@ def summary_document(result) -> dict:
         "wrong_calls": result.wrong_calls,
         "criteria": list(result.criteria) if diagnostics["ok"] else [],
         "comparisons": result.comparisons,
+        "prior_sensitivity": result.prior_sensitivity,
+        "prior_from": result.prior_from,
         "limitations": [lim.as_dict() for lim in limitations],
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],
@@ -272,6 +278,8 @@ def write_fit(result, out_dir: Path, *, overwrite: bool = False, classical: dict
         frame.insert(0, "use_results", summary["use_results"])
         frame.to_csv(tmp / "summary.csv", index=False)
         (tmp / "run.json").write_text(dumps(result.provenance) + "\n", encoding="utf-8")
+        # the model as fitted, priors included: reusable with --model
+        (tmp / "model.toml").write_text(result.spec.text, encoding="utf-8")
         (tmp / "classical.json").write_text(dumps(classical) + "\n", encoding="utf-8")
         calls_table(result.study).to_csv(tmp / "calls.csv", index=False)
         interrupts.raise_if_interrupted()

@@ -6,7 +6,6 @@ owns the step, and writes its machine-readable twin into the folder.
 
 from __future__ import annotations
 
-import logging
 from pathlib import Path
 
 import numpy as np
@@ -52,17 +51,7 @@ def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int
                                          seed=seed)  # fmt: skip
     except MALFORMED as exc:
         raise _malformed(folder, exc) from None
-    # PyMC logs the variables it samples from the prior; that is noise here. (PyMC
-    # sets its logger's level when first imported, so import it before changing it.)
-    import pymc  # noqa: F401
-
-    logger = logging.getLogger("pymc")
-    level = logger.level
-    logger.setLevel(logging.WARNING)
-    try:
-        prior = prior_predictive(fit.spec, fit.study, draws=draws, seed=seed)
-    finally:
-        logger.setLevel(level)
+    prior = prior_predictive(fit.spec, fit.study, draws=draws, seed=seed)
     document = {
         "posterior_predictive": ppc.as_dict(),
         "prior_predictive": prior,
@@ -246,3 +235,19 @@ def compare_folders(
         document = {"generator": f"{GENERATOR} {__version__}", **result}
         write_text_atomic(Path(out), dumps(document) + "\n")
     return result
+
+
+def write_prior(
+    statements: str | Path, out: str | Path, *, overwrite: bool = False
+) -> tuple[object, list[dict]]:
+    """Priors from a statements file (see :mod:`bayes_rr.elicit`), written as a spec file
+    (an existing file only when the toolkit wrote it, or with ``overwrite``)."""
+    from bayes_rr import __version__
+    from bayes_rr.elicit import load_statements
+
+    check_output_file(Path(out), suffixes=(".toml",), overwrite=overwrite,
+                      protected=(Path(statements),))  # fmt: skip
+    spec, rows = load_statements(statements)
+    text = f"# generator: {GENERATOR} {__version__}\n" + spec.text
+    write_text_atomic(Path(out), text)
+    return spec, rows

@@ -25,6 +25,10 @@ DISTRIBUTIONS: dict[str, tuple[Support, tuple[str, ...], dict[str, float]]] = {
     "exponential": ("positive", ("lam",), {}),
     "gamma": ("positive", ("alpha", "beta"), {}),
     "beta": ("unit", ("alpha", "beta"), {}),
+    # normal on the unconstrained scale (log, logit): how an earlier study's posterior
+    # of a scale or a share is carried into a new spec
+    "lognormal": ("positive", ("mu", "sigma"), {}),
+    "logit_normal": ("unit", ("mu", "sigma"), {}),
 }
 POSITIVE_PARAMETERS = {"sigma", "nu", "lam", "alpha", "beta"}
 
@@ -73,6 +77,10 @@ class Prior:
             return stats.expon(scale=1 / k["lam"])
         if name == "gamma":
             return stats.gamma(k["alpha"], scale=1 / k["beta"])
+        if name == "lognormal":
+            return stats.lognorm(k["sigma"], scale=math.exp(k["mu"]))
+        if name == "logit_normal":
+            return _LogitNormal(k["mu"], k["sigma"])
         return stats.beta(k["alpha"], k["beta"])
 
     def text(self) -> str:
@@ -91,6 +99,19 @@ class _FoldedT:
 
     def rvs(self, size=None, random_state=None):
         return abs(self.base.rvs(size=size, random_state=random_state))
+
+
+class _LogitNormal:
+    """Minimal frozen logit-normal with ppf and rvs (scipy has none)."""
+
+    def __init__(self, mu: float, sigma: float) -> None:
+        self.base = stats.norm(mu, sigma)
+
+    def ppf(self, q):
+        return expit(self.base.ppf(q))
+
+    def rvs(self, size=None, random_state=None):
+        return expit(self.base.rvs(size=size, random_state=random_state))
 
 
 def make_prior(raw: object, where: str) -> Prior:

@@ -150,6 +150,10 @@ def _findings(inputs: ReportInputs) -> str:
         )
     sentences = [lim["sentence"] for lim in summary.get("limitations", [])]
     sentences += list(summary["readings"])
+    from bayes_rr.sensitivity import sentences as prior_sentences
+
+    earlier = summary.get("prior_from")
+    sentences += prior_sentences(summary.get("prior_sensitivity") or {}, bool(earlier))[:1]
     checks = inputs.checks
     if checks is not None:
         ppc = checks["posterior_predictive"]
@@ -351,6 +355,73 @@ def _model_section(inputs: ReportInputs) -> str:
                 ["quantity", "scope", "prior median", "prior 95% range", "posterior"],
                 rows,
                 {2, 3, 4},
+            )
+        )
+    return "".join(parts)
+
+
+def _prior_section(inputs: ReportInputs) -> str:
+    """The earlier study carried in (if any) and the power-scaling sensitivity."""
+    from bayes_rr.sensitivity import sentences
+
+    summary = inputs.summary
+    parts = []
+    earlier = summary.get("prior_from")
+    if earlier:
+        parts.append(
+            f"<p>An earlier fit ({esc(earlier['fit'])}, data SHA-256 "
+            f"{esc(earlier['data_sha256'][:12])}...) is part of the prior, with weight "
+            f"{earlier['weight']:g} (1 carries the earlier study in full). Each hyper-"
+            "parameter's stated prior is multiplied by a normal factor on its unconstrained "
+            "scale, chosen so that the product follows the earlier draws; the hyper-parameters "
+            "are carried over as independent. The quantile gap is the largest difference in "
+            "probability between the approximation and the earlier draws at their 5, 25, 50, "
+            "75 and 95% quantiles.</p>"
+        )
+        rows = [
+            [
+                esc(r["label"]),
+                esc(r["scale"]),
+                f"{r['draws_mean']:.3g} / {r['draws_sd']:.3g}",
+                "not needed"
+                if not r["carried"]
+                else f"N({r['factor_mu']:.3g}, {r['factor_sigma']:.3g})",
+                f"{r['quantile_gap']:.3f}",
+            ]
+            for r in earlier["parameters"]
+        ]
+        parts.append(
+            _table(
+                ["hyper-parameter", "scale", "earlier mean / sd", "factor", "quantile gap"],
+                rows,
+                {2, 4},
+            )
+        )
+    block = summary.get("prior_sensitivity")
+    if block and block.get("rows"):
+        parts.append(
+            "<p>Power-scaling sensitivity (Kallioinen et al. 2023): how much each result "
+            "moves when the stated priors, or the likelihood, are made slightly stronger or "
+            f"weaker, computed from the draws without refitting. At or above "
+            f"{block['threshold']:g} the prior shapes a result; a low likelihood sensitivity "
+            "then means the data say little about it.</p>"
+        )
+        parts.append("<p>" + " ".join(esc(t) for t in sentences(block, bool(earlier))) + "</p>")
+        rows = [
+            [
+                esc(r["key"].replace("_", " ")),
+                esc(r["scope"]),
+                f"{r['prior']:.3f}",
+                f"{r['likelihood']:.3f}",
+                esc(r["verdict_words"]),
+            ]
+            for r in block["rows"]
+        ]
+        parts.append(
+            _table(
+                ["result", "scope", "prior sensitivity", "likelihood sensitivity", "reading"],
+                rows,
+                {2, 3},
             )
         )
     return "".join(parts)
@@ -604,6 +675,7 @@ def render_report(inputs: ReportInputs) -> str:
     if ok:
         sections += [
             ("", "Results", _results_section(inputs)),
+            ("", "How much the prior matters", _prior_section(inputs)),
             ("", "Does the model reproduce the data?", _checks_section(inputs)),
         ]
     sections += [

@@ -69,6 +69,30 @@ class SamplerDefaults:
 
 
 @dataclass(frozen=True)
+class EarlierFactor:
+    """What an earlier study said about one hyper-parameter: a normal factor
+    N(mu, sigma) on the parameter's unconstrained scale (``identity``, ``log`` or
+    ``logit``), multiplied into its stated prior with the study's weight."""
+
+    parameter: str
+    scale: str
+    mu: float
+    sigma: float
+    status: str | None = None
+
+
+@dataclass(frozen=True)
+class EarlierStudy:
+    """An earlier study carried in as prior (power-prior style: each factor is raised to
+    ``weight``; weight 0 would be the stated priors alone, 1 the earlier study in full)."""
+
+    weight: float
+    factors: tuple[EarlierFactor, ...]
+    fit: str = ""
+    data_sha256: str = ""
+
+
+@dataclass(frozen=True)
 class ModelSpec:
     """A validated model specification."""
 
@@ -89,6 +113,8 @@ class ModelSpec:
     """Prior of the share of reject parts (latent class family)."""
     suits: str = ""
     """Which data the model suits, in a sentence (shown by 'bayes-rr models')."""
+    earlier: EarlierStudy | None = None
+    """An earlier study carried in as prior (``[earlier_study]``), if any."""
 
     @property
     def sha256(self) -> str:
@@ -121,7 +147,10 @@ TOP_KEYS = {
     "prevalence",
     "curve",
     "sampler",
+    "earlier_study",
 }
+EARLIER_KEYS = {"weight", "fit", "data_sha256", "factor"}
+FACTOR_KEYS = {"parameter", "status", "scale", "mu", "sigma"}
 
 
 def _check_keys(table: dict, allowed: set[str], where: str, source: str) -> None:
@@ -220,6 +249,86 @@ def _sampler(raw: dict, source: str) -> SamplerDefaults:
     return SamplerDefaults(sampler, target_accept=float(target), **values)
 
 
+def _finite(value: object, where: str, source: str) -> float:
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, int | float)
+        or not (abs(value) < float("inf"))
+    ):
+        raise SpecError(f"{source}: {where} = {value!r}: expected a finite number")
+    return float(value)
+
+
+def _earlier(raw: dict, source: str) -> EarlierStudy | None:
+    if "earlier_study" not in raw:
+        return None
+    table = _table(raw, "earlier_study", source, "")
+    _check_keys(table, EARLIER_KEYS, "[earlier_study]", source)
+    weight = _finite(table.get("weight"), "earlier_study.weight", source)
+    if not 0 < weight <= 1:
+        raise SpecError(
+            f"{source}: earlier_study.weight = {weight!r}: expected a number in (0, 1] "
+            "(1: the earlier study in full; smaller: an older or less relevant study)"
+        )
+    factors = []
+    rows = table.get("factor", [])
+    if not isinstance(rows, list):
+        raise SpecError(
+            f"{source}: earlier_study.factor = {rows!r}: expected [[earlier_study.factor]] tables"
+        )
+    for i, row in enumerate(rows):
+        where = f"earlier_study.factor[{i}]"
+        if not isinstance(row, dict):
+            raise SpecError(f"{source}: {where} = {row!r}: expected a table")
+        _check_keys(row, FACTOR_KEYS, where, source)
+        missing = sorted({"parameter", "scale", "mu", "sigma"} - set(row))
+        if missing:
+            raise SpecError(f"{source}: {where} needs {missing}")
+        sigma = _finite(row["sigma"], f"{where}.sigma", source)
+        if sigma <= 0:
+            raise SpecError(f"{source}: {where}.sigma = {sigma!r}: must be greater than 0")
+        status = row.get("status")
+        if status is not None and not isinstance(status, str):
+            raise SpecError(f"{source}: {where}.status = {status!r}: expected a string")
+        factors.append(
+            EarlierFactor(
+                str(row["parameter"]),
+                str(row["scale"]),
+                _finite(row["mu"], f"{where}.mu", source),
+                sigma,
+                status,
+            )
+        )
+    for key in ("fit", "data_sha256"):
+        if not isinstance(table.get(key, ""), str):
+            raise SpecError(f"{source}: earlier_study.{key} = {table[key]!r}: expected a string")
+    return EarlierStudy(weight, tuple(factors), table.get("fit", ""), table.get("data_sha256", ""))
+
+
+def _check_earlier(spec: ModelSpec) -> None:
+    """Every factor names a hyper-parameter of the spec, on that parameter's scale."""
+    from bayes_rr.hyperpriors import find, hyper_parameters
+
+    if spec.earlier is None:
+        return
+    known = sorted({h.label for h in hyper_parameters(spec)})
+    for i, factor in enumerate(spec.earlier.factors):
+        hyper = find(spec, factor.parameter, factor.status)
+        where = f"{spec.source}: earlier_study.factor[{i}]"
+        if hyper is None:
+            label = factor.parameter if factor.status is None else (
+                f"{factor.parameter}[{factor.status}]")  # fmt: skip
+            raise SpecError(
+                f"{where} is about {label!r}, which is not a hyper-parameter of this "
+                f"{spec.family!r} spec; expected one of {known}"
+            )
+        if factor.scale != hyper.scale:
+            raise SpecError(
+                f"{where}.scale = {factor.scale!r}: {hyper.label} is approximated on the "
+                f"{hyper.scale!r} scale"
+            )
+
+
 def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
     """Parse and validate the TOML text of a model specification."""
     try:
@@ -296,7 +405,7 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         raise SpecError(
             f"{source}: [concentration] is for the beta_binomial family, not {family!r}; remove it"
         )
-    return ModelSpec(
+    spec = ModelSpec(
         name=name.strip(),
         description=description.strip(),
         family=family,
@@ -310,7 +419,10 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         link=link,
         prevalence=prevalence,
         suits=suits.strip(),
+        earlier=_earlier(raw, source),
     )
+    _check_earlier(spec)
+    return spec
 
 
 def models_dir() -> Path:

@@ -32,4 +32,35 @@ def build_model(spec: ModelSpec, study: StudyData) -> pm.Model:
     """Build the PyMC model of ``spec`` for ``study`` (nothing is sampled)."""
     if spec.family not in _MODULES:
         raise SpecError(f"{spec.source}: no builder for family {spec.family!r}")
-    return importlib.import_module(_MODULES[spec.family]).build(spec, study)
+    model = importlib.import_module(_MODULES[spec.family]).build(spec, study)
+    if spec.earlier is not None:
+        add_earlier_study(model, spec)
+    return model
+
+
+def add_earlier_study(model: pm.Model, spec: ModelSpec) -> None:
+    """Multiply the stated priors by the earlier study's factors, each raised to the
+    study's weight: ``weight * log N(u; mu, sigma)`` on the unconstrained scale ``u``."""
+    import pymc as pm
+
+    from bayes_rr.families.common import STATUSES
+
+    transforms = {
+        "identity": lambda x: x,
+        "log": pm.math.log,
+        "logit": pm.math.logit,
+    }
+    weight = spec.earlier.weight
+    with model:
+        for factor in spec.earlier.factors:
+            if factor.parameter not in model.named_vars:
+                continue  # a term the new data cannot carry (e.g. no reference column)
+            value = model[factor.parameter]
+            if factor.status is not None:
+                value = value[STATUSES.index(factor.status)]
+            u = transforms[factor.scale](value)
+            label = factor.parameter if factor.status is None else (
+                f"{factor.parameter}_{factor.status}")  # fmt: skip
+            pm.Potential(
+                f"earlier_{label}", (weight * -0.5 * ((u - factor.mu) / factor.sigma) ** 2).sum()
+            )

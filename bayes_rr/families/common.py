@@ -19,6 +19,8 @@ PYMC_DISTRIBUTIONS = {
     "exponential": pm.Exponential,
     "gamma": pm.Gamma,
     "beta": pm.Beta,
+    "lognormal": pm.LogNormal,
+    "logit_normal": pm.LogitNormal,
 }
 
 
