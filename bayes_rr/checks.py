@@ -293,6 +293,7 @@ def posterior_predictive_check(
 # prior predictive check
 
 PRIOR_KEYS = (
+    "call_rate",
     "reproducibility_share",
     "repeatability_share",
     "repeat_disagreement",

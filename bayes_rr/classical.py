@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import itertools
 import math
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -329,13 +329,40 @@ def error_rates(study: StudyData, prob: float = DEFAULT_PROB) -> list[ErrorRate]
 # kappa
 
 
+BOOTSTRAP_RESAMPLES = 2000
+BOOTSTRAP_SEED = 0
+"""Fixed, so the same data always give the same interval."""
+
+
+def bootstrap_weights(groups: int, resamples: int = BOOTSTRAP_RESAMPLES,
+                      seed: int = BOOTSTRAP_SEED) -> np.ndarray:  # fmt: skip
+    """(resamples, groups) counts of how often each group is drawn in each resample."""
+    rng = np.random.default_rng(seed)
+    return rng.multinomial(groups, np.full(groups, 1.0 / groups), size=resamples).astype(float)
+
+
+def _percentile(values: np.ndarray, prob: float) -> tuple[float, float]:
+    values = values[np.isfinite(values)]
+    if values.size < 0.9 * BOOTSTRAP_RESAMPLES:
+        return math.nan, math.nan
+    lo, hi = np.quantile(values, [(1 - prob) / 2, (1 + prob) / 2])
+    return float(lo), float(hi)
+
+
+BOOTSTRAP_NOTE = (
+    "percentile bootstrap over parts ({resamples} resamples, fixed seed): the uncertainty "
+    "of the estimate; the null SE serves only the test of no agreement beyond chance"
+)
+
+
 @dataclass(frozen=True)
 class FleissKappa:
-    """Fleiss' kappa with its standard errors.
+    """Fleiss' kappa with its standard errors and a bootstrap interval.
 
     ``se_fleiss_1971`` is the formula printed by Fleiss (1971);
-    ``se_null_fnl_1979`` the variance under no agreement beyond chance of
-    Fleiss, Nee & Landis (1979), used for ``z``.
+    ``se_null_fnl_1979`` the SE under no agreement beyond chance of Fleiss, Nee &
+    Landis (1979), right for the test (``z``) and wrong as the uncertainty of the
+    estimate; ``lower``/``upper`` a percentile bootstrap interval over parts.
     """
 
     kappa: float
@@ -346,20 +373,41 @@ class FleissKappa:
     ratings_per_subject: float
     observed_agreement: float
     chance_agreement: float
+    lower: float = math.nan
+    upper: float = math.nan
+    interval: str = ""
 
 
-def fleiss_kappa(counts: np.ndarray) -> FleissKappa:
+def _fleiss_weighted(counts: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """Fleiss' kappa for each row of subject ``weights`` (resamples x subjects)."""
+    n_i = counts.sum(axis=1)
+    p_i = ((counts**2).sum(axis=1) - n_i) / (n_i * (n_i - 1))
+    p_j = (weights @ counts) / (weights @ n_i)[:, None]
+    p_bar = (weights @ p_i) / weights.sum(axis=1)
+    p_e = (p_j**2).sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(p_e < 1 - 1e-12, (p_bar - p_e) / (1 - p_e), np.nan)
+
+
+def fleiss_kappa(
+    counts: np.ndarray, *, groups: np.ndarray | None = None, prob: float | None = None
+) -> FleissKappa:
     """Fleiss' kappa of a subjects x categories table of rating counts.
 
     Subjects with fewer than two ratings carry no agreement information and
     are dropped. Unequal numbers of ratings per subject are allowed in the
     point estimate (per-subject agreement P_i averaged); the standard errors
-    assume equal numbers and use the mean number of ratings.
+    assume equal numbers and use the mean number of ratings. With ``prob``, a
+    percentile bootstrap interval resamples the subjects, or the ``groups`` of
+    subjects (an integer label per subject: the part of each call) when given.
     """
     counts = np.asarray(counts, dtype=float)
     n_i = counts.sum(axis=1)
-    counts = counts[n_i >= 2]
-    n_i = n_i[n_i >= 2]
+    keep = n_i >= 2
+    counts = counts[keep]
+    n_i = n_i[keep]
+    if groups is not None:
+        groups = np.asarray(groups)[keep]
     if counts.shape[0] == 0:
         raise ValueError("Fleiss' kappa needs at least one subject with two or more ratings")
     subjects = counts.shape[0]
@@ -383,6 +431,13 @@ def fleiss_kappa(counts: np.ndarray) -> FleissKappa:
         2 / (subjects * n * (n - 1)) * (pq**2 - float((p_j * q_j * (q_j - p_j)).sum())) / pq**2
     )
     se_null = math.sqrt(max(var_null, 0.0))
+    lower = upper = math.nan
+    interval = ""
+    if prob is not None:
+        codes = np.arange(subjects) if groups is None else np.unique(groups, return_inverse=True)[1]
+        weights = bootstrap_weights(int(codes.max()) + 1)[:, codes]
+        lower, upper = _percentile(_fleiss_weighted(counts, weights), prob)
+        interval = BOOTSTRAP_NOTE.format(resamples=BOOTSTRAP_RESAMPLES)
     return FleissKappa(
         kappa=float(kappa),
         se_fleiss_1971=math.sqrt(max(var_1971, 0.0)),
@@ -392,6 +447,9 @@ def fleiss_kappa(counts: np.ndarray) -> FleissKappa:
         ratings_per_subject=n,
         observed_agreement=p_bar,
         chance_agreement=p_e,
+        lower=lower,
+        upper=upper,
+        interval=interval,
     )
 
 
@@ -412,6 +470,37 @@ class CohenKappa:
     n: int
     observed_agreement: float
     chance_agreement: float
+    lower: float = math.nan
+    upper: float = math.nan
+    interval: str = ""
+
+
+def _cohen_many(tables: np.ndarray) -> np.ndarray:
+    """Cohen's kappa of each k x k table of a stack (resamples x k x k)."""
+    p = tables / tables.sum(axis=(1, 2))[:, None, None]
+    po = np.trace(p, axis1=1, axis2=2)
+    pe = (p.sum(axis=2) * p.sum(axis=1)).sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(pe < 1 - 1e-12, (po - pe) / (1 - pe), np.nan)
+
+
+def pair_tables(cells: pd.DataFrame, a: str, b: str) -> np.ndarray:
+    """Per common part, the 2 x 2 table of all pairings of appraiser ``a``'s calls with
+    ``b``'s (rows: a accept/reject, columns: b), each part weighted 1.
+
+    Every call of one appraiser is paired with every call of the other on the same
+    part, so trial numbers play no part: relabelling trials within a cell leaves the
+    table unchanged. With one trial each it is the usual table of paired calls.
+    """
+    mine = cells[cells["appraiser"] == a].set_index("part")
+    theirs = cells[cells["appraiser"] == b].set_index("part")
+    common = mine.index.intersection(theirs.index)
+    x = (mine.loc[common, "s"] / mine.loc[common, "n"]).to_numpy(dtype=float)
+    y = (theirs.loc[common, "s"] / theirs.loc[common, "n"]).to_numpy(dtype=float)
+    return np.stack(
+        [np.stack([(1 - x) * (1 - y), (1 - x) * y], axis=1),
+         np.stack([x * (1 - y), x * y], axis=1)], axis=1,
+    )  # fmt: skip
 
 
 def cohen_kappa(table: np.ndarray) -> CohenKappa:
@@ -439,7 +528,18 @@ def cohen_kappa(table: np.ndarray) -> CohenKappa:
     se0 = math.sqrt(max(var0, 0.0))
     # One rater using a single category gives a null SE of 0: z is then undefined.
     z = float(kappa / se0) if se0 > 0 else math.nan
-    return CohenKappa(float(kappa), se_1960, se_fce, se0, z, int(n), po, pe)
+    return CohenKappa(float(kappa), se_1960, se_fce, se0, z, round(n), po, pe)
+
+
+def cohen_kappa_pairs(per_part: np.ndarray, prob: float) -> CohenKappa:
+    """Cohen's kappa of the summed per-part tables of :func:`pair_tables`, with a
+    percentile bootstrap interval over parts. The standard errors treat each part as
+    one pair of calls."""
+    result = cohen_kappa(per_part.sum(axis=0))
+    weights = bootstrap_weights(per_part.shape[0])
+    lower, upper = _percentile(_cohen_many(np.einsum("bp,pij->bij", weights, per_part)), prob)
+    return replace(result, lower=lower, upper=upper,
+                   interval=BOOTSTRAP_NOTE.format(resamples=BOOTSTRAP_RESAMPLES))  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -468,9 +568,10 @@ def _binary_counts(s: np.ndarray, n: np.ndarray) -> np.ndarray:
     return np.column_stack([n - s, s])
 
 
-def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
+def kappas(study: StudyData, prob: float = DEFAULT_PROB) -> tuple[list[KappaRow], list[dict]]:
     """Fleiss' kappa of each appraiser's own trials, across appraisers and against the reference;
-    Cohen's kappa for each pair of appraisers (trial-matched calls on common parts)."""
+    Cohen's kappa for each pair of appraisers (all pairings of their calls on common parts,
+    see :func:`pair_tables`); each with a bootstrap interval over parts."""
     rows: list[KappaRow] = []
     skipped: list[dict] = []
 
@@ -491,7 +592,7 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
                 "fleiss",
                 appraiser,
                 None,
-                fleiss_kappa(_binary_counts(mine["s"].to_numpy(), mine["n"].to_numpy())),
+                fleiss_kappa(_binary_counts(mine["s"].to_numpy(), mine["n"].to_numpy()), prob=prob),
                 "subjects: parts; ratings: the appraiser's trials",
             ),
         )
@@ -504,7 +605,9 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
                 "fleiss",
                 None,
                 None,
-                fleiss_kappa(_binary_counts(per_part["s"].to_numpy(), per_part["n"].to_numpy())),
+                fleiss_kappa(
+                    _binary_counts(per_part["s"].to_numpy(), per_part["n"].to_numpy()), prob=prob
+                ),
                 "subjects: parts; ratings: every call of every appraiser",
             ),
         )
@@ -517,14 +620,15 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
         groups = [(a, calls[calls["appraiser"] == a]) for a in study.appraisers] + [(None, calls)]
         for appraiser, frame in groups:
             s = frame["call"].to_numpy() + frame["ref"].to_numpy()
+            parts = frame["part"].to_numpy()
             attempt(
                 f"Fleiss' kappa against reference ({appraiser or 'all appraisers'})",
-                lambda s=s, appraiser=appraiser: KappaRow(
+                lambda s=s, parts=parts, appraiser=appraiser: KappaRow(
                     "appraiser_vs_reference" if appraiser else "all_vs_reference",
                     "fleiss",
                     appraiser,
                     "reference",
-                    fleiss_kappa(_binary_counts(s, np.full_like(s, 2))),
+                    fleiss_kappa(_binary_counts(s, np.full_like(s, 2)), groups=parts, prob=prob),
                     "subjects: calls; ratings: the call and the reference status",
                 ),
             )
@@ -532,31 +636,24 @@ def kappas(study: StudyData) -> tuple[list[KappaRow], list[dict]]:
     if too_many:
         skipped.append(too_many)
         return rows, skipped
-    wide = study.calls.pivot_table(
-        index=["part", "trial"], columns="appraiser", values="call", aggfunc="first"
-    )
     for a, b in itertools.combinations(study.appraisers, 2):
-        pair = wide[[a, b]].dropna() if {a, b} <= set(wide.columns) else pd.DataFrame()
-        if pair.empty:
+        per_part = pair_tables(cells, a, b)
+        if per_part.shape[0] == 0:
             skipped.append(
-                {
-                    "statistic": f"Cohen's kappa {a} vs {b}",
-                    "reason": "the two appraisers share no (part, trial)",
-                }
-            )
+                {"statistic": f"Cohen's kappa {a} vs {b}", "reason": "the two appraisers "
+                 "share no part"}
+            )  # fmt: skip
             continue
-        table = pd.crosstab(pair[a].astype(int), pair[b].astype(int)).reindex(
-            index=[0, 1], columns=[0, 1], fill_value=0
-        )
         attempt(
             f"Cohen's kappa {a} vs {b}",
-            lambda table=table, a=a, b=b: KappaRow(
+            lambda per_part=per_part, a=a, b=b: KappaRow(
                 "appraiser_pair",
                 "cohen",
                 a,
                 b,
-                cohen_kappa(table.to_numpy()),
-                "subjects: (part, trial) pairs both appraisers called",
+                cohen_kappa_pairs(per_part, prob),
+                "subjects: parts both appraisers called; every call of one paired with "
+                "every call of the other on the part (trial numbers play no part)",
             ),
         )
     return rows, skipped
@@ -666,7 +763,7 @@ def classical_statistics(study: StudyData, prob: float = DEFAULT_PROB) -> Classi
         raise ValueError(f"interval probability {prob!r} must be strictly between 0 and 1")
     plug, corr = moment_estimates(study)
     agree, skipped_agree = agreement(study, prob)
-    kap, skipped_kappa = kappas(study)
+    kap, skipped_kappa = kappas(study, prob)
     skipped = skipped_agree + skipped_kappa
     if len(study.appraisers) < 2:
         skipped.insert(

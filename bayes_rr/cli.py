@@ -37,8 +37,24 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
+
+
 # No markup: a name such as "[/]" in a study must print as it is, not as a style tag.
-out = Console(markup=False, highlight=False)
+class _Console(Console):
+    """A console whose tables never cut a value: at any width, and when piped (80
+    columns), a cell too wide for its column wraps at spaces, then folds, instead of
+    ending in an ellipsis."""
+
+    def print(self, *objects, **kwargs) -> None:
+        for item in objects:
+            if isinstance(item, Table):
+                for column in item.columns:
+                    column.no_wrap = False
+                    column.overflow = "fold"
+        super().print(*objects, **kwargs)
+
+
+out = _Console(markup=False, highlight=False)
 err = Console(stderr=True, markup=False, highlight=False)
 DEBUG_ENV = "BAYES_RR_DEBUG"
 INTERRUPTED = "interrupted; nothing was written"
@@ -560,14 +576,14 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         _print_footer(summary, diag)
         return
     table = Table(
-        title=f"Study level, model {summary['model']['name']} "
-        f"(posterior mean and {prob:.0%} {kind} interval)"
+        title=f"Study level, model {summary['model']['name']}",
+        caption=f"posterior mean, then its {prob:.0%} {kind} interval; classical: the "
+        "corrected moment estimate, the plug-in one in brackets",
     )
     table.add_column("quantity")
-    table.add_column("study's appraisers", justify="right")
-    table.add_column("new appraiser (population)", justify="right")
-    table.add_column("classical plug-in", justify="right")
-    table.add_column("classical corrected", justify="right")
+    table.add_column("the study's appraisers", justify="right")
+    table.add_column("a new appraiser", justify="right")
+    table.add_column("classical", justify="right")
     rows = {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
     plug = (classical or {}).get("classical", {}).get("plug_in", {}).get("study", {})
     corr = (classical or {}).get("classical", {}).get("corrected", {}).get("study", {})
@@ -582,7 +598,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
             return "prior only"
         if note.startswith("fixed by construction"):
             return "by design"
-        return f"{row['mean']:.4f} ({row['lower']:.4f}-{row['upper']:.4f})"
+        # mean above its interval: the columns stay narrow enough for 80 columns
+        return f"{row['mean']:.4f}\n{row['lower']:.4f}-{row['upper']:.4f}"
 
     for key in (
         "rr_variance",
@@ -600,8 +617,7 @@ def print_fit(summary: dict, classical: dict | None) -> None:
             key.replace("_", " "),
             cell(key, "study"),
             cell(key, "population"),
-            _num(plug.get(key), 4),
-            _num(corr.get(key), 4),
+            f"{_num(corr.get(key), 4)}\n({_num(plug.get(key), 4)})" if key in corr else "-",
         )
     out.print(table)
     for sentence in summary["readings"]:
@@ -768,7 +784,7 @@ def run_fit(
     target_accept: float | None = None,
     sampler: str | None = None,
     prob: float = DEFAULT_PROB,
-    interval: str = "hdi",
+    interval: str = "eti",
     quiet: bool = False,
     overwrite: bool = False,
     production=None,
@@ -884,8 +900,12 @@ def fit(
     ] = None,
     prob: Prob = DEFAULT_PROB,
     interval: Annotated[
-        str, typer.Option(help="'hdi' (highest density) or 'eti' (equal-tailed) intervals.")
-    ] = "hdi",
+        str,
+        typer.Option(
+            help="'eti' (equal-tailed: the default, carries through square roots and other "
+            "monotone maps) or 'hdi' (highest density) intervals."
+        ),
+    ] = "eti",
     quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
     overwrite: Annotated[
         bool,
@@ -975,6 +995,19 @@ def print_checks(document: dict) -> None:
             f"{stat['p_value']:.3f}" + (" *" if stat["flagged"] else ""),
         )
     out.print(table)
+    prior = document.get("prior_predictive") or []
+    if prior:
+        before = Table(
+            title="Prior predictive check: what the priors alone imply for this design",
+            caption="prior draws before the calls are seen; a prior range much wider than "
+            "the posterior interval means the data, not the priors, decide",
+        )
+        for name in ("quantity", "scope", "prior median", "prior 95% range"):
+            before.add_column(name, justify="left" if name in ("quantity", "scope") else "right")
+        for row in prior:
+            before.add_row(row["key"].replace("_", " "), row["scope"], f"{row['median']:.3f}",
+                           f"{row['q025']:.3f} to {row['q975']:.3f}")  # fmt: skip
+        out.print(before)
     flagged = ppc["flagged"]
     out.print(ppc["verdict"][0].upper() + ppc["verdict"][1:] + ".")
     if flagged:
@@ -1063,12 +1096,19 @@ def report(
         Path | None,
         Col("--criteria", help="Acceptance criteria (TOML) to evaluate in the report."),
     ] = None,
+    compare: Annotated[
+        list[Path] | None,
+        Col(
+            "--compare",
+            help="Another fit folder of the same data to compare with (PSIS-LOO); repeat for more.",
+        ),
+    ] = None,
 ) -> None:
     """Write one self-contained HTML report of a fit (runs the checks if needed)."""
     from bayes_rr.pipeline import report_fit
 
     path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes, overwrite=overwrite,
-                      criteria=criteria)  # fmt: skip
+                      criteria=criteria, compare=compare)  # fmt: skip
     out.print(f"report written to {path}")
 
 

@@ -792,11 +792,15 @@ def study_from_cells(
     *,
     reference: Sequence[int] | None = None,
     source: str = "<simulated>",
+    rng: np.random.Generator | None = None,
 ) -> StudyData:
     """Build a study from a parts x appraisers grid of trials ``n`` and reject counts ``s``.
 
-    Cells with ``n == 0`` are empty. Calls within a cell are written as the
-    ``s`` rejects first; the order within a cell carries no information.
+    Cells with ``n == 0`` are empty. With ``rng``, the trials that carry the ``s``
+    rejects of a cell are drawn at random (as in a real study, where a trial number
+    says nothing about the call); without it, the rejects come first (fixed tables
+    in tests). Rejects first lines up the calls of two appraisers on the same trial
+    numbers as well as possible, which inflates any trial-matched agreement.
     """
     n = np.asarray(n, dtype=int)
     s = np.asarray(s, dtype=int)
@@ -808,8 +812,11 @@ def study_from_cells(
     rows = []
     for i, part in enumerate(parts):
         for j, appraiser in enumerate(appraisers):
-            for k in range(n[i, j]):
-                rows.append((str(part), str(appraiser), str(k + 1), int(k < s[i, j])))
+            calls = (np.arange(n[i, j]) < s[i, j]).astype(int)
+            if rng is not None:
+                calls = rng.permutation(calls)
+            for k, call in enumerate(calls):
+                rows.append((str(part), str(appraiser), str(k + 1), int(call)))
     long = pd.DataFrame(rows, columns=["part", "appraiser", "trial", "call"])
     ref = None
     if reference is not None:

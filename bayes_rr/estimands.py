@@ -87,19 +87,42 @@ def parse_variable_name(name: str) -> tuple[str, str, str]:
 # numpy core
 
 
-def decompose_study(p: np.ndarray) -> dict[str, np.ndarray]:
+def decompose_study(p: np.ndarray, q: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Study-scope per-part decomposition from call probabilities ``p`` (..., part, appraiser).
 
     pi = mean_j p, T = pi(1 - pi), V = mean_j (p - pi)^2, R = mean_j p(1 - p);
-    T = R + V exactly.
+    T = R + V exactly. ``q`` is 1 - p computed without cancellation (see
+    :class:`LatentDraws`): with it, T and R stay positive for p within 1e-16 of 1,
+    and V is computed from whichever of p and q is small.
     """
+    q = 1 - p if q is None else q
     pi = p.mean(axis=-1)
+    qbar = q.mean(axis=-1)
+    spread_p = ((p - pi[..., None]) ** 2).mean(axis=-1)
+    spread_q = ((q - qbar[..., None]) ** 2).mean(axis=-1)
     return {
         "call_rate": pi,
-        "rr_variance": pi * (1 - pi),
-        "repeatability_variance": (p * (1 - p)).mean(axis=-1),
-        "reproducibility_variance": ((p - pi[..., None]) ** 2).mean(axis=-1),
+        "rr_variance": pi * qbar,
+        "repeatability_variance": (p * q).mean(axis=-1),
+        "reproducibility_variance": np.where(pi <= 0.5, spread_p, spread_q),
     }
+
+
+def beta_draws(
+    rng: np.random.Generator, alpha: np.ndarray, beta: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """(p, 1 - p) of Beta(alpha, beta) draws, from gamma variates on the log scale.
+
+    log G(a) = log G(a + 1) + log(U) / a (a gamma variate of shape a from one of shape
+    a + 1; Marsaglia and Tsang 2000, section 5), so a small shape gives a very small
+    but positive variate instead of an exact 0, and p and 1 - p are each computed
+    from the logs: neither rounds to exactly 0 or 1 unless it is below 1e-308.
+    """
+    alpha, beta = np.broadcast_arrays(alpha, beta)
+    log_g1 = np.log(rng.gamma(alpha + 1.0)) + np.log(rng.random(alpha.shape)) / alpha
+    log_g2 = np.log(rng.gamma(beta + 1.0)) + np.log(rng.random(beta.shape)) / beta
+    total = np.logaddexp(log_g1, log_g2)
+    return np.exp(log_g1 - total), np.exp(log_g2 - total)
 
 
 def gauss_hermite(nodes: int) -> tuple[np.ndarray, np.ndarray]:
@@ -303,6 +326,9 @@ class LatentDraws:
     cell_log_lik: np.ndarray  # (S, cell or part): log P(calls | parameters), for LOO
     extra: dict = field(default_factory=dict)
     log_lik_dim: str = "cell"
+    q_study: np.ndarray | None = None
+    """1 - p_study computed without cancellation (expit(-eta), or from gamma variates),
+    so p(1 - p) stays positive where p rounds to 1; None: 1 - p_study is used."""
 
 
 def part_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray:
@@ -356,7 +382,7 @@ def latent_logit(posterior: xr.Dataset, study: StudyData, rng: np.random.Generat
             posterior, "interaction_effect"
         )
     eta = eta_part[:, :, None] + b[:, None, :] + c
-    p = expit(eta)
+    p, q = expit(eta), expit(-eta)
     population = decompose_population_logit(eta_part, np.sqrt(sigma_b**2 + sigma_c**2))
     if "sigma_appraiser" in posterior and "sigma_interaction" in posterior:
         population.update(split_reproducibility_logit(eta_part, sigma_b, sigma_c))
@@ -370,7 +396,7 @@ def latent_logit(posterior: xr.Dataset, study: StudyData, rng: np.random.Generat
     else:
         eta_cell = eta[:, part, app]
         log_lik = _log_binom_coef(n, k) + k * log_expit(eta_cell) + (n - k) * log_expit(-eta_cell)
-    return LatentDraws(p, population, log_lik)
+    return LatentDraws(p, population, log_lik, q_study=q)
 
 
 def integrated_cell_log_lik(
@@ -411,7 +437,7 @@ def latent_beta_binomial(
     # Conjugate draws of p_ij given pi_i, phi and the cell's counts (estimands.md).
     alpha = (pi * phi)[:, :, None] + k[None]
     beta = ((1 - pi) * phi)[:, :, None] + (n - k)[None]
-    p = rng.beta(alpha, beta)
+    p, q = beta_draws(rng, alpha, beta)
     part = cells["part_index"].to_numpy()
     log_lik = stats.betabinom.logpmf(
         cells["s"].to_numpy(),
@@ -419,7 +445,7 @@ def latent_beta_binomial(
         (pi * phi)[:, part],
         ((1 - pi) * phi)[:, part],
     )
-    return LatentDraws(p, decompose_population_beta(pi, phi), log_lik)
+    return LatentDraws(p, decompose_population_beta(pi, phi), log_lik, q_study=q)
 
 
 def _population_by_status(
@@ -452,7 +478,7 @@ def latent_reference_logit(
         reference_logit_rates,
     )
 
-    p, base, d = reference_logit_probabilities(posterior, study, rng)
+    p, base, d, q = reference_logit_probabilities(posterior, study, rng)
     status = study.reference.to_numpy().astype(int)
     eta_part = d.intercept[:, status] + d.part_effect
     split = "sigma_appraiser" in posterior and "sigma_interaction" in posterior
@@ -468,7 +494,7 @@ def latent_reference_logit(
         eta_cell = base[:, part, app]
         log_lik = _log_binom_coef(n, k) + k * log_expit(eta_cell) + (n - k) * log_expit(-eta_cell)
     extra = rate_variables(reference_logit_rates(p, d, study))
-    return LatentDraws(p, population, log_lik, extra)
+    return LatentDraws(p, population, log_lik, extra, q_study=q)
 
 
 def latent_latent_class(
@@ -583,7 +609,7 @@ def compute_estimands(
     latent = latent or latent_draws(posterior, spec, study, seed)
     per_scope = {}
     if latent.p_study is not None:
-        per_scope["study"] = add_shares(decompose_study(latent.p_study), "study")
+        per_scope["study"] = add_shares(decompose_study(latent.p_study, latent.q_study), "study")
     if latent.population:
         per_scope["population"] = add_shares(latent.population, "population")
     coords = {
@@ -614,9 +640,10 @@ def compute_estimands(
             put(scope, "study", key, values, None)
     if spec.family in ("logit", "reference_logit", "call_curve"):
         p = latent.p_study
+        q = 1 - p if latent.q_study is None else latent.q_study
         put("study", "appraiser", "call_rate", p.mean(axis=1), "appraiser")
         # each appraiser's own inconsistency: mean over the parts of p(1 - p)
-        put("study", "appraiser", "repeatability_variance", (p * (1 - p)).mean(axis=1),
+        put("study", "appraiser", "repeatability_variance", (p * q).mean(axis=1),
             "appraiser")  # fmt: skip
     for (scope, level, key), (values, dim) in latent.extra.items():
         put(scope, level, key, values, dim)
@@ -647,8 +674,27 @@ class SummaryRow:
     note: str | None = None
 
 
+def _defined_summary(draws: np.ndarray, prob: float, interval: str) -> dict[str, float]:
+    """Mean, median, sd and interval of the defined (non-NaN) draws of one quantity."""
+    from bayes_rr import diagnostics
+
+    defined = draws[np.isfinite(draws)]
+    if interval == "hdi":
+        lower, upper = diagnostics.hdi(defined.reshape(1, -1, 1), prob)
+        lower, upper = float(lower[0]), float(upper[0])
+    else:
+        lower, upper = (float(v) for v in np.quantile(defined, [(1 - prob) / 2, (1 + prob) / 2]))
+    return {
+        "mean": float(defined.mean()),
+        "median": float(np.median(defined)),
+        "sd": float(defined.std(ddof=1)) if defined.size > 1 else math.nan,
+        "lower": lower,
+        "upper": upper,
+    }
+
+
 def summarize(
-    ds: xr.Dataset, prob: float = DEFAULT_PROB, interval: str = "hdi", *, level: str | None = None
+    ds: xr.Dataset, prob: float = DEFAULT_PROB, interval: str = "eti", *, level: str | None = None
 ) -> list[SummaryRow]:
     """Mean, median, sd, interval (``hdi`` or ``eti``), r_hat, ess_bulk and ess_tail of every
     variable of ``ds`` (estimands, or posterior parameters with ``level="parameter"``).
@@ -672,10 +718,18 @@ def summarize(
     if not columns:
         return []
     x = np.concatenate(columns, axis=2)
-    # A share is undefined in draws where T = 0 (e.g. a conjugate draw of exactly 0
-    # for a part nobody rejects): such quantities are summarised as missing, with a note.
-    undefined = np.isnan(x).mean(axis=(0, 1))
-    x = np.where(np.isnan(x), 0.0, x)
+    # A share is undefined in draws where T = 0 (p within 1e-308 of 0 or 1 for every
+    # appraiser): it is summarised over the other draws, with a note saying in how many
+    # it was undefined, and stays in the convergence gate, its diagnostics computed
+    # with the undefined draws set to the median of the others.
+    missing = np.isnan(x)
+    undefined = missing.mean(axis=(0, 1))
+    raw = x
+    if missing.any():
+        partial = undefined < 1
+        fill = np.zeros(x.shape[2])
+        fill[partial] = np.nanmedian(x[:, :, partial].reshape(-1, int(partial.sum())), axis=0)
+        x = np.where(missing, fill, x)
     flat = x.reshape(-1, x.shape[2])
     if interval == "hdi":
         lower, upper = diagnostics.hdi(x, prob)
@@ -699,12 +753,16 @@ def summarize(
         other = [f"{d}={v}" for d, v in where.items() if d not in ("part", "appraiser")]
         if other:
             key = f"{key}[{','.join(other)}]"
-        values = dict.fromkeys(stats_, math.nan)
+        values = {s: float(v[k]) for s, v in stats_.items()}
         note = None
-        if undefined[k] > 0:
-            note = f"undefined in {undefined[k]:.1%} of draws (T = 0)"
-        else:
-            values = {s: float(v[k]) for s, v in stats_.items()}
+        if undefined[k] == 1:
+            values = dict.fromkeys(stats_, math.nan)
+            note = "undefined in every draw (T = 0)"
+        elif undefined[k] > 0:
+            values.update(_defined_summary(raw[:, :, k], prob, interval))
+            note = (
+                f"undefined in {undefined[k]:.2%} of draws (T = 0); summarised over the other draws"
+            )
         rows.append(
             SummaryRow(
                 key, scope, lev, where.get("part"), where.get("appraiser"), **values, note=note

@@ -116,7 +116,7 @@ def fit_study(
     settings: SamplerSettings,
     *,
     prob: float = DEFAULT_PROB,
-    interval: str = "hdi",
+    interval: str = "eti",
     production=None,
     criteria: tuple = (),
     prior_from: dict | None = None,

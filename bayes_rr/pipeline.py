@@ -153,11 +153,14 @@ def report_fit(
     run_checks: bool = True,
     overwrite: bool = False,
     criteria: str | Path | None = None,
+    compare: list[str | Path] | None = None,
 ) -> Path:
     """Write the HTML report of a fit (running the checks first when they are missing).
 
     The report file must end in .html; an existing file is replaced only when the
     toolkit wrote it, or with ``overwrite``; a file of the fit folder never.
+    ``compare``: other fit folders of the same data, compared with this one by
+    PSIS-LOO in the report.
     """
     from bayes_rr.report import ReportInputs, render_report
 
@@ -175,6 +178,7 @@ def report_fit(
 
         wanted = load_criteria(criteria)
         check_keys(wanted)
+    comparison = compare_folders([folder, *compare]) if compare else None
     fit = load_fit(folder)
     summary = fit.summary
     if wanted and summary["diagnostics"]["ok"]:
@@ -200,6 +204,7 @@ def report_fit(
                 site=site,
                 notes=notes,
                 folder=str(folder),
+                comparison=comparison,
             )
             html = render_report(inputs)
         except MALFORMED as exc:

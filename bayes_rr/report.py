@@ -71,6 +71,8 @@ class ReportInputs:
     site: str | None = None
     notes: str | None = None
     folder: str = ""
+    comparison: dict | None = None
+    """A PSIS-LOO comparison of this fit with others of the same data (checks.compare_fits)."""
 
 
 def esc(value: object) -> str:
@@ -358,6 +360,33 @@ def _model_section(inputs: ReportInputs) -> str:
             )
         )
     return "".join(parts)
+
+
+def _comparison_section(inputs: ReportInputs) -> str:
+    """Which of the compared models predicts the calls best (PSIS-LOO)."""
+    result = inputs.comparison
+    rows = [
+        [
+            esc(r["model"]),
+            esc(result.get("folders", {}).get(r["model"], "")),
+            f"{r['elpd_diff']:.1f}",
+            f"{r['diff_se']:.1f}",
+            f"{r['stacking_weight']:.2f}",
+            esc(r["pareto_k_note"]),
+        ]
+        for r in result["models"]
+    ]
+    return (
+        f"<p>{esc(result['verdict'])}.</p>"
+        f"<p class='note'>{esc(result['method'])}. The difference in expected log predictive "
+        "density (elpd) is against the best model; a difference within two of its standard "
+        "errors does not separate the models.</p>"
+        + _table(
+            ["model", "fit folder", "elpd difference", "its SE", "stacking weight", "reliability"],
+            rows,
+            {2, 3, 4},
+        )
+    )
 
 
 def _prior_section(inputs: ReportInputs) -> str:
@@ -676,6 +705,7 @@ def render_report(inputs: ReportInputs) -> str:
         sections += [
             ("", "Results", _results_section(inputs)),
             ("", "How much the prior matters", _prior_section(inputs)),
+            *([("", "Models compared", _comparison_section(inputs))] if inputs.comparison else []),
             ("", "Does the model reproduce the data?", _checks_section(inputs)),
         ]
     sections += [

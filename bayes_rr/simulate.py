@@ -85,7 +85,13 @@ def simulate_crossed_logit(
     s = rng.binomial(n, p)
     names = list(appraiser_names) if appraiser_names else _labels("A", n_appraisers)
     study = study_from_cells(
-        _labels("P", n_parts), names, n, s, reference=reference, source=f"simulated (seed {seed})"
+        _labels("P", n_parts),
+        names,
+        n,
+        s,
+        reference=reference,
+        source=f"simulated (seed {seed})",
+        rng=rng,
     )
     params = {
         "mu": mu,
@@ -123,7 +129,12 @@ def simulate_beta_binomial(
     n = _trials(rng, n_parts, n_appraisers, n_trials, missing_share)
     s = rng.binomial(n, p)
     study = study_from_cells(
-        _labels("P", n_parts), _labels("A", n_appraisers), n, s, source=f"simulated (seed {seed})"
+        _labels("P", n_parts),
+        _labels("A", n_appraisers),
+        n,
+        s,
+        source=f"simulated (seed {seed})",
+        rng=rng,
     )
     return SimulatedStudy(
         study, p, {"mu": mu, "sigma_part": sigma_part, "rho": rho, "pi": pi, "seed": seed}
@@ -143,7 +154,8 @@ def flip_borderline(sim: SimulatedStudy, appraiser: int = 0, seed: int = 0) -> S
     s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
     # alternate: that appraiser's calls on borderline parts are half reject, half accept
     s[border, appraiser] = np.where(rng.random(int(border.sum())) < 0.5, n[border, appraiser], 0)
-    new = study_from_cells(study.parts, study.appraisers, n, s, source=study.source + " (flipped)")
+    new = study_from_cells(study.parts, study.appraisers, n, s, source=study.source + " (flipped)",
+                           rng=rng)  # fmt: skip
     return SimulatedStudy(new, sim.p, {**sim.params, "flipped_appraiser": appraiser})
 
 
@@ -199,7 +211,7 @@ def simulate_status_logit(
     }
     study = study_from_cells(
         _labels("P", n_parts), _labels("A", n_appraisers), n, s,
-        reference=None if hide_reference else status, source=f"simulated (seed {seed})",
+        reference=None if hide_reference else status, source=f"simulated (seed {seed})", rng=rng,
     )  # fmt: skip
     params = {
         "mu": mu, "sigma_part": sigma_part, "sigma_appraiser": sigma_appraiser,
@@ -236,7 +248,7 @@ def simulate_call_curve(
     n = np.full((n_parts, n_appraisers), n_trials)
     s = rng.binomial(n, p)
     study = study_from_cells(_labels("P", n_parts), _labels("A", n_appraisers), n, s,
-                             source=f"simulated (seed {seed})")  # fmt: skip
+                             source=f"simulated (seed {seed})", rng=rng)  # fmt: skip
     values = pd.Series(x, index=list(study.parts), name="reference_value")
     values.index.name = "part"
     study = build_study(study.calls, source=study.source, reference_value=values,

@@ -175,7 +175,7 @@ def reference_logit_probabilities(
         c[:, cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()] = _draws(
             posterior, "interaction_effect"
         )
-    return expit(base + c), base, d
+    return expit(base + c), base, d, expit(-(base + c))
 
 
 def reference_logit_rates(p: np.ndarray, d: StatusDraws, study: StudyData) -> dict:

@@ -311,3 +311,74 @@ def test_kernels_compile_without_a_disk_cache():
     with pytest.raises(RuntimeError, match="cannot cache"):
         numba.njit(cache=True)(namespace["add_one"])
     assert _jit(namespace["add_one"])(1.0) == 2.0
+
+
+# ---------------------------------------------------------------------------
+# edge cases: p near 0 or 1, undefined draws, intervals through square roots
+
+
+@pytest.mark.parametrize(("a", "b"), [(2.0, 3.0), (0.01, 5.0), (50.0, 0.02), (0.5, 0.02)])
+def test_beta_draws_follow_the_beta_distribution_without_rounding_to_0_or_1(a, b):
+    """Kolmogorov-Smirnov against scipy.stats.beta, on p or on 1 - p (whichever is small;
+    numpy's Generator.beta returns exactly 1.0 in about half the draws of Beta(50, 0.02))."""
+    from scipy import stats
+
+    from bayes_rr.estimands import beta_draws
+
+    rng = np.random.default_rng(3)
+    p, q = beta_draws(rng, np.full(50_000, a), np.full(50_000, b))
+    small, dist = (p, stats.beta(a, b)) if a <= b else (q, stats.beta(b, a))
+    assert stats.kstest(small, dist.cdf).pvalue > 1e-3
+    # exact zeros only where the true value is below the smallest double (Beta(0.01, 5)
+    # puts about 6e-4 of its mass below 1e-308)
+    assert np.mean(p * q == 0) <= 1.5 * dist.cdf(1e-300) + 2e-4
+    np.testing.assert_allclose(p + q, 1.0, atol=1e-12)
+
+
+def test_decomposition_stays_defined_where_p_rounds_to_1():
+    """eta = 40: expit(eta) is exactly 1.0 in floating point, yet T and R are positive
+    and the shares defined when 1 - p is computed as expit(-eta)."""
+    from scipy.special import expit
+
+    from bayes_rr.estimands import add_shares, decompose_study
+
+    eta = np.array([[[40.0, 41.0, 39.0]]])
+    assert np.all(expit(eta) == 1.0)
+    per_part = add_shares(decompose_study(expit(eta), expit(-eta)), "study")
+    assert per_part["rr_variance"][0, 0] > 0
+    assert 0 <= per_part["reproducibility_share"][0, 0] <= 1
+    assert per_part["repeatability_share"][0, 0] == pytest.approx(
+        1 - per_part["reproducibility_share"][0, 0]
+    )
+    # without the accurate 1 - p the share is lost: the reason for q
+    assert np.isnan(add_shares(decompose_study(expit(eta)), "study")["reproducibility_share"][0, 0])
+
+
+def test_rows_with_undefined_draws_are_summarised_and_kept_in_the_gate():
+    import xarray as xr
+
+    from bayes_rr.estimands import summarize
+
+    rng = np.random.default_rng(0)
+    values = rng.normal(0.5, 0.1, (4, 500))
+    values[0, :5] = np.nan
+    ds = xr.Dataset({"study__study__reproducibility_share": (("chain", "draw"), values)})
+    (row,) = summarize(ds, 0.9, "eti")
+    defined = values[np.isfinite(values)]
+    assert row.mean == pytest.approx(defined.mean())
+    assert row.lower == pytest.approx(np.quantile(defined, 0.05))
+    assert np.isfinite(row.r_hat) and np.isfinite(row.ess_bulk)
+    assert "0.25% of draws" in row.note
+
+
+def test_equal_tailed_intervals_carry_through_the_square_root(fits):
+    """The default (equal-tailed) interval of an sd is the square root of its variance's
+    interval (up to the interpolation between neighbouring draws)."""
+    result = fits["crossed-logit"]
+    assert result.interval == "eti"
+    rows = {(r.key, r.scope): r for r in result.estimand_rows if r.level == "study"}
+    for scope in ("study", "population"):
+        for name in ("rr", "repeatability", "reproducibility"):
+            var, sd = rows[(f"{name}_variance", scope)], rows[(f"{name}_sd", scope)]
+            assert sd.lower == pytest.approx(np.sqrt(var.lower), rel=2e-3, abs=1e-6)
+            assert sd.upper == pytest.approx(np.sqrt(var.upper), rel=2e-3, abs=1e-6)

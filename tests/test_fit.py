@@ -103,7 +103,7 @@ def test_output_folder_files_and_schema(fit_dirs):
         assert set(FILES) <= names <= {*FILES, "checks.json", "report.html"}
         summary = json.loads((folder / "summary.json").read_text())
         assert summary["model"]["name"] == name
-        assert summary["prob"] == 0.95 and summary["interval"] == "hdi"
+        assert summary["prob"] == 0.95 and summary["interval"] == "eti"
         for key in ("ok", "divergences", "max_r_hat", "min_ess_bulk", "min_ess_tail", "reasons"):
             assert key in summary["diagnostics"]
         for row in summary["estimands"]:

@@ -250,3 +250,19 @@ def test_a_dollar_in_a_name_is_not_drawn_as_mathematics():
     with literal_text():
         literal = label_width()
     assert literal > 3 * as_math
+
+
+def test_check_prints_the_prior_predictive_check_and_report_compares_models(fit_dirs, tmp_path):
+    folder = str(fit_dirs["crossed-logit"])
+    result = runner.invoke(app, ["check", folder, "--draws", "200"])
+    assert result.exit_code == 0, result.output
+    assert "Prior predictive check" in result.output
+    checks = json.loads((fit_dirs["crossed-logit"] / "checks.json").read_text())
+    assert {"call_rate", "reproducibility_share"} <= {r["key"] for r in checks["prior_predictive"]}
+    out = tmp_path / "compared.html"
+    result = runner.invoke(app, ["report", folder, "--out", str(out), "--compare",
+                                 str(fit_dirs["beta-binomial"])])  # fmt: skip
+    assert result.exit_code == 0, result.output
+    page = out.read_text()
+    assert "Models compared" in page
+    assert "crossed-logit" in page and "beta-binomial" in page and "stacking weight" in page
