@@ -93,7 +93,11 @@ class CheckResult:
     def verdict(self) -> str:
         count, limit = len(self.flagged), self.chance_limit
         if count == 0:
-            return "no statistic flagged: the model reproduces these features of the data"
+            return (
+                f"none of the {len(self.statistics)} statistics checked falls outside the range "
+                "the model predicts for them (this finds no misfit in these features; it does "
+                "not prove the model right)"
+            )
         if count <= limit:
             return (
                 f"{count} of {len(self.statistics)} statistics flagged, no more than chance "

@@ -795,3 +795,30 @@ def classical_statistics(study: StudyData, prob: float = DEFAULT_PROB) -> Classi
         tuple(appraiser_differences(study, prob)),
         tuple(skipped),
     )
+
+
+def by_appraiser(document: dict) -> list[dict]:
+    """The classical figures of a classical.json document regrouped by appraiser: one
+    dict per appraiser (and ``None`` for the appraisers together) with the rows of
+    ``own`` agreement and ``own_kappa``, and with a reference ``reference`` agreement,
+    ``reference_kappa``, ``false_reject_rate`` and ``false_accept_rate`` (None where not
+    computed)."""
+    agreement = {(r["kind"], r["appraiser"]): r for r in document["agreement"]}
+    kappa = {(r["kind"], r["appraiser"], r["other"]): r for r in document["kappa"]}
+    errors = {(r["key"], r["appraiser"]): r for r in document["error_rates"]}
+    names = list(dict.fromkeys(r["appraiser"] for r in document["agreement"] if r["appraiser"]))
+    out = []
+    for name in [*names, None]:
+        together = name is None
+        kind = "all_vs_reference" if together else "appraiser_vs_reference"
+        out.append({
+            "appraiser": name,
+            "own": agreement.get(("across_appraisers" if together else "own_trials", name)),
+            "own_kappa": kappa.get(("across_appraisers" if together else "own_trials", name,
+                                    None)),
+            "reference": agreement.get((kind, name)),
+            "reference_kappa": kappa.get((kind, name, "reference")),
+            "false_reject_rate": errors.get(("false_reject_rate", name)),
+            "false_accept_rate": errors.get(("false_accept_rate", name)),
+        })  # fmt: skip
+    return out

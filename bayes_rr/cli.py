@@ -356,80 +356,90 @@ def print_description(result: dict) -> None:
     table.add_column("quantity")
     table.add_column("plug-in", justify="right")
     table.add_column("corrected n/(n-1)", justify="right")
-    for label, key in (
-        ("R&R variance T", "rr_variance"),
-        ("repeatability variance R", "repeatability_variance"),
-        ("reproducibility variance V", "reproducibility_variance"),
-        ("reproducibility share V/T", "reproducibility_share"),
-        ("P(two repeat calls disagree) 2R", "repeat_disagreement"),
+    from bayes_rr import glossary
+
+    for key in (
+        "rr_variance",
+        "repeatability_variance",
+        "reproducibility_variance",
+        "reproducibility_share",
+        "repeat_disagreement",
     ):
-        table.add_row(label, _num(plug[key], 4), _num(corr[key], 4))
+        table.add_row(glossary.name(key), _num(plug[key], 4), _num(corr[key], 4))
     out.print(table)
     for flag in result["classical"]["corrected"]["flags"]:
         out.print(f"flag: {flag}")
 
-    table = Table(title=f"Agreement over parts ({prob:.0%} intervals)")
-    for col in ("kind", "appraiser", "agreed/parts", "share", "exact (C-P)", "Wilson"):
-        table.add_column(col)
-    for row in result["agreement"]:
-        cp, wi = row["intervals"]
-        table.add_row(
-            row["kind"].replace("_", " "),
-            row["appraiser"] or "all",
-            f"{row['agreed']}/{row['parts']}",
-            f"{row['share']:.1%}",
-            f"{cp['lower']:.1%}-{cp['upper']:.1%}",
-            f"{wi['lower']:.1%}-{wi['upper']:.1%}",
-        )
-    out.print(table)
-
-    if result["error_rates"]:
-        table = Table(title=f"Calls against the reference ({prob:.0%} exact intervals)")
-        for col in ("rate", "appraiser", "errors/calls", "estimate", "interval"):
-            table.add_column(col)
-        for row in result["error_rates"]:
-            cp = row["intervals"][0]
-            table.add_row(
-                row["key"].replace("_", " "),
-                row["appraiser"] or "all",
-                f"{row['errors']}/{row['calls']}",
-                f"{row['rate']:.1%}",
-                f"{cp['lower']:.1%}-{cp['upper']:.1%}",
-            )
-        out.print(table)
-
-    table = Table(title="Kappa (z uses the standard error under no agreement beyond chance)")
-    for col in ("kind", "statistic", "who", "kappa", "SE", "z"):
-        table.add_column(col)
-    for row in result["kappa"]:
-        se = row.get("se_fleiss_1971", row.get("se_fce_1969"))
-        who = " vs ".join(x for x in (row["appraiser"], row["other"]) if x) or "all"
-        table.add_row(
-            row["kind"].replace("_", " "),
-            row["statistic"],
-            who,
-            _num(row["kappa"]),
-            _num(se),
-            _num(row["z"], 1),
-        )
-    out.print(table)
-
-    if result["appraiser_differences"]:
-        table = Table(title=f"Differences of call rates ({prob:.0%} intervals)")
-        for col in ("appraisers", "rates", "difference", "Newcombe", "Agresti-Caffo"):
-            table.add_column(col)
-        for row in result["appraiser_differences"]:
-            nw, ac = row["intervals"]
-            table.add_row(
-                f"{row['appraiser']} - {row['other']}",
-                f"{row['call_rate']:.3f} vs {row['other_call_rate']:.3f}",
-                f"{row['difference']:+.3f}",
-                f"{nw['lower']:+.3f} to {nw['upper']:+.3f}",
-                f"{ac['lower']:+.3f} to {ac['upper']:+.3f}",
-            )
-        out.print(table)
+    _print_classical_by_appraiser(result, prob)
     for item in result["not_computed"]:
         out.print(f"not computed: {item['statistic']}: {item['reason']}")
+
+
+def _share_text(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    wilson = next((i for i in row["intervals"] if i["method"].startswith("Wilson")),
+                  row["intervals"][0])  # fmt: skip
+    share = row.get("share", row.get("rate"))
+    return f"{share:.0%}\n{wilson['lower']:.0%}-{wilson['upper']:.0%}"
+
+
+def _kappa_text(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    lower, upper = row.get("lower"), row.get("upper")
+    interval = "" if lower is None or upper is None else f"\n{lower:.2f} to {upper:.2f}"
+    return f"{row['kappa']:.2f}{interval}"
+
+
+def _print_classical_by_appraiser(result: dict, prob: float) -> None:
+    """The classical agreement figures, one row per appraiser (the report's layout)."""
+    from bayes_rr.classical import by_appraiser
+
+    rows = by_appraiser(result)
+    table = Table(
+        title="Each appraiser's own consistency",
+        caption=f"shares with {prob:.0%} Wilson intervals; kappa with a {prob:.0%} bootstrap "
+        "interval over parts (null SEs and z: --json)",
+    )
+    for name in ("appraiser", "parts called alike on every own trial", "kappa of own trials"):
+        table.add_column(name, justify="left" if name == "appraiser" else "right")
+    for item in rows:
+        table.add_row(item["appraiser"] or "all together", _share_text(item["own"]),
+                      _kappa_text(item["own_kappa"]))  # fmt: skip
+    out.print(table)
+    if any(item["reference"] for item in rows):
+        table = Table(
+            title="Each appraiser against the reference",
+            caption="error rates count calls, treating them as independent",
+        )
+        for name in ("appraiser", "parts matching on every trial", "kappa",
+                     "false reject rate", "false accept rate"):  # fmt: skip
+            table.add_column(name, justify="left" if name == "appraiser" else "right")
+        for item in rows:
+            table.add_row(item["appraiser"] or "all together", _share_text(item["reference"]),
+                          _kappa_text(item["reference_kappa"]),
+                          _share_text(item["false_reject_rate"]),
+                          _share_text(item["false_accept_rate"]))  # fmt: skip
+        out.print(table)
+    kappas = {(r["appraiser"], r["other"]): r for r in result["kappa"]
+              if r["kind"] == "appraiser_pair"}  # fmt: skip
+    if result["appraiser_differences"] or kappas:
+        table = Table(
+            title="Pairs of appraisers",
+            caption="Cohen's kappa pairs every call of one with every call of the other on "
+            "a part; the difference of call rates with Newcombe's interval",
+        )
+        for name in ("pair", "Cohen's kappa", "difference of call rates"):
+            table.add_column(name, justify="left" if name == "pair" else "right")
+        for row in result["appraiser_differences"]:
+            newcombe = row["intervals"][0]
+            table.add_row(
+                f"{row['appraiser']} and {row['other']}",
+                _kappa_text(kappas.get((row["appraiser"], row["other"]))),
+                f"{row['difference']:+.3f}\n{newcombe['lower']:+.3f} to {newcombe['upper']:+.3f}",
+            )
+        out.print(table)
 
 
 @app.command()
@@ -583,6 +593,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
     table.add_column("quantity")
     table.add_column("the study's appraisers", justify="right")
     table.add_column("a new appraiser", justify="right")
+    from bayes_rr import glossary
+
     table.add_column("classical", justify="right")
     rows = {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
     plug = (classical or {}).get("classical", {}).get("plug_in", {}).get("study", {})
@@ -614,7 +626,7 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         if (key, "study") not in rows and (key, "population") not in rows:
             continue
         table.add_row(
-            key.replace("_", " "),
+            glossary.name(key),
             cell(key, "study"),
             cell(key, "population"),
             f"{_num(corr.get(key), 4)}\n({_num(plug.get(key), 4)})" if key in corr else "-",

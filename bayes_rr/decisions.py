@@ -42,7 +42,9 @@ class Criterion:
     label: str = ""
 
     def sentence(self, probability: float, met: bool) -> str:
-        name = self.label or self.key.replace("_", " ")
+        from bayes_rr import glossary
+
+        name = self.label or glossary.name(self.key)
         verdict = "met" if met else "not met"
         return (
             f"{name} ({self.scope} scope) is {self.direction} {self.threshold:g} with "

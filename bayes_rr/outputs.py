@@ -207,7 +207,7 @@ def check_output_file(
 
 def summary_document(result) -> dict:
     """The content of summary.json."""
-    from bayes_rr import __version__
+    from bayes_rr import __version__, glossary
     from bayes_rr.fit import plain_readings
 
     rows = [jsonable(asdict(r)) for r in result.estimand_rows]
@@ -246,6 +246,7 @@ def summary_document(result) -> dict:
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],
         "r_hat_threshold": R_HAT_MAX,
+        "glossary": glossary.as_dict(),
     }
 
 

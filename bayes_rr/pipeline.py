@@ -88,7 +88,10 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     s = np.zeros_like(n)
     n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
     s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
-    figures = {"call_grid": plots.call_grid(list(study.parts), list(study.appraisers), n, s)}
+    reference = None if study.reference is None else study.reference.to_numpy()
+    figures = {
+        "call_grid": plots.call_grid(list(study.parts), list(study.appraisers), n, s, reference)
+    }
     posterior = fit.idata.posterior
     hyper = {v: posterior[v].to_numpy() for v in HYPER_PARAMETERS if v in posterior
              and posterior[v].ndim == 2}  # fmt: skip

@@ -9,6 +9,7 @@ directly (no pyplot state), so they work on any backend and in threads.
 from __future__ import annotations
 
 import contextlib
+import textwrap
 from collections.abc import Iterator
 
 import matplotlib
@@ -132,8 +133,12 @@ def appraiser_call_rates(rows: list[dict], *, prob: float = 0.95) -> Figure | No
     return fig
 
 
-def call_grid(parts: list[str], appraisers: list[str], n: np.ndarray, s: np.ndarray) -> Figure:
-    """Observed share of reject calls per part x appraiser cell (grey scale, with s/n)."""
+def call_grid(
+    parts: list[str], appraisers: list[str], n: np.ndarray, s: np.ndarray,
+    reference: np.ndarray | None = None,
+) -> Figure:  # fmt: skip
+    """Observed share of reject calls per part x appraiser cell (grey scale, with s/n), and
+    each part's reference status beside the grid when known."""
     share = np.where(n > 0, s / np.maximum(n, 1), np.nan)
     height = max(3.0, 0.17 * len(parts) + 1.5)
     fig, axes = _new(min(8.0, 2.0 + 1.1 * len(appraisers)), height)
@@ -147,7 +152,15 @@ def call_grid(parts: list[str], appraisers: list[str], n: np.ndarray, s: np.ndar
                 text = f"{s[i, j]}/{n[i, j]}" if n[i, j] else "-"
                 ax.text(j, i, text, ha="center", va="center", fontsize=6,
                         color="white" if share[i, j] > 0.55 else "black")  # fmt: skip
+    if reference is not None:
+        # the reference status in a column of its own, right of the appraisers
+        for i, status in enumerate(reference):
+            ax.text(len(appraisers), i, "reject" if status else "accept", ha="center",
+                    va="center", fontsize=6, fontweight="bold" if status else "normal")  # fmt: skip
+        ax.set_xlim(-0.5, len(appraisers) + 0.5)
+        ax.set_xticks(np.arange(len(appraisers) + 1), [*appraisers, "reference"])
     fig.colorbar(image, ax=ax, label="observed share of reject calls")
+    ax.set_title("Calls per part and appraiser: rejects/calls in each cell", fontsize=9)
     ax.set_xlabel("appraiser")
     ax.set_ylabel("part")
     return fig
@@ -162,18 +175,29 @@ def predictive_checks(statistics: list[dict]) -> Figure:
     fig, axes = _new(9.0, 1.9 * rows + 0.6, rows, cols)
     for ax, stat in zip(axes.ravel(), statistics, strict=False):
         rep = np.asarray(stat["replicated"], dtype=float)
-        edges = np.unique(rep)
-        bins = (np.append(edges, edges[-1] + 1) - 0.5) if edges.size <= 30 else 30
+        observed = float(stat["observed"])
+        values = np.append(rep, observed)
+        if np.all(values == np.round(values)):
+            # counts: one bar per whole number, on an integer axis
+            low, high = int(values.min()), int(values.max())
+            bins = np.arange(low, high + 2) - 0.5
+            ax.xaxis.get_major_locator().set_params(integer=True)
+        else:
+            # shares: bins over the values seen, on the share's own (0-1) scale
+            low, high = values.min(), values.max()
+            pad = max((high - low) * 0.05, 0.005)
+            bins = np.linspace(max(0.0, low - pad), min(1.0, high + pad), 21)
         ax.hist(rep, bins=bins, color="0.8", edgecolor="0.4")
-        ax.axvline(stat["observed"], color="black", lw=2, ls="-")
-        flag = " FLAG" if stat["flagged"] else ""
-        ax.set_title(f"{stat['name']}\np = {stat['p_value']:.2f}{flag}", fontsize=7)
+        ax.axvline(observed, color="black", lw=2, ls="-")
+        flag = " (flagged)" if stat["flagged"] else ""
+        title = textwrap.fill(stat.get("description") or stat["name"], 34)
+        ax.set_title(f"{title}\np = {stat['p_value']:.2f}{flag}", fontsize=6.5)
         ax.tick_params(labelsize=6)
         ax.set_yticks([])
     for ax in axes.ravel()[count:]:
         ax.set_visible(False)
-    fig.suptitle("Posterior predictive check: replicated (bars) vs observed (line)",
-                 fontsize=10)  # fmt: skip
+    fig.suptitle("Model check: the statistic in studies replicated from the posterior (bars) "
+                 "and in the data (line)", fontsize=10)  # fmt: skip
     return fig
 
 
@@ -198,6 +222,8 @@ def rank_plots(draws: dict[str, np.ndarray]) -> Figure:
         ax.set_title(name, fontsize=8)
         ax.set_yticks([])
         ax.set_xticks([])
+        ax.set_xlabel("rank of the draw among all chains", fontsize=6)
+        ax.set_ylabel("draws per bin", fontsize=6)
     for ax in axes.ravel()[len(names) :]:
         ax.set_visible(False)
     axes[0, 0].legend(fontsize=6, frameon=False)

@@ -13,6 +13,7 @@ import html
 import io
 from dataclasses import dataclass, field
 
+from bayes_rr import glossary
 from bayes_rr.describe import reference_rows
 
 CAUTIONS = (
@@ -21,18 +22,18 @@ CAUTIONS = (
     "For safety-critical parts, defer to local codes and licensed practice.",
 )
 
-STUDY_ROWS = (
-    ("rr_variance", "R&R variance T = pi(1 - pi)"),
-    ("repeatability_variance", "repeatability variance R"),
-    ("reproducibility_variance", "reproducibility variance V"),
-    ("rr_sd", "R&R standard deviation"),
-    ("repeatability_sd", "repeatability standard deviation"),
-    ("reproducibility_sd", "reproducibility standard deviation"),
-    ("reproducibility_share", "share of inconsistency due to appraisers (V/T)"),
-    ("repeat_disagreement", "P(two repeat calls by one appraiser disagree) = 2R"),
-    ("cross_disagreement", "P(two calls by two new appraisers disagree) = 2T"),
-    ("appraiser_bias_variance", "part of V from appraisers' consistent leaning"),
-    ("interaction_variance", "part of V from appraiser-by-part disagreement"),
+STUDY_KEYS = (
+    "rr_variance",
+    "repeatability_variance",
+    "reproducibility_variance",
+    "rr_sd",
+    "repeatability_sd",
+    "reproducibility_sd",
+    "reproducibility_share",
+    "repeat_disagreement",
+    "cross_disagreement",
+    "appraiser_bias_variance",
+    "interaction_variance",
 )
 
 STYLE = """
@@ -44,16 +45,25 @@ table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.9rem; }
 th, td { border: 1px solid #bbb; padding: 0.2rem 0.5rem; text-align: left;
          vertical-align: top; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; }
-pre { background: #f4f4f4; padding: 0.6rem; overflow-x: auto; font-size: 0.8rem; }
+pre { background: #f4f4f4; padding: 0.6rem; font-size: 0.8rem; white-space: pre-wrap;
+      overflow-wrap: anywhere; }
+.answer { border: 2px solid #333; padding: 0.4rem 1rem; margin: 1rem 0; }
+.answer h2 { border: none; margin-top: 0.4rem; }
+dl.glossary dt { font-weight: bold; } dl.glossary dd { margin: 0 0 0.3rem 1.2rem; }
 .banner { border: 3px solid #000; padding: 0.6rem; font-weight: bold; }
 .flag { font-weight: bold; }
 .note { font-size: 0.85rem; color: #333; }
 img.figure { max-width: 100%; height: auto; display: block; margin: 0.6rem 0; }
+img.figure.half { max-width: 48%; display: inline-block; vertical-align: top; }
+@page { size: A4; margin: 14mm 12mm; }
 @media print {
-  body { margin: 0; max-width: none; }
-  section { page-break-before: always; break-before: page; }
-  section.first { page-break-before: auto; break-before: auto; }
-  img.figure { page-break-inside: avoid; break-inside: avoid; }
+  body { margin: 0; max-width: none; font-size: 10pt; line-height: 1.3; }
+  h2 { margin-top: 1.2rem; break-after: avoid; }
+  h3 { break-after: avoid; }
+  section.appendix-start { break-before: page; }
+  table, img.figure, .answer { break-inside: avoid; }
+  img.figure { max-height: 120mm; width: auto; }
+  table { font-size: 8.5pt; }
 }
 """
 
@@ -128,39 +138,87 @@ def _interval(row: dict | None, digits: int = 4) -> str:
 # sections
 
 
-def _findings(inputs: ReportInputs) -> str:
+ANSWER_KEYS = (
+    ("false_reject_rate", "system"),
+    ("false_accept_rate", "system"),
+    ("repeat_disagreement", "study"),
+    ("cross_disagreement", "study"),
+    ("reproducibility_share", "study"),
+)
+"""The results the first page leads with, in this order (those the model gives)."""
+
+
+def _answer(inputs: ReportInputs) -> str:
+    """The answer in brief: key results with their scope in words, criteria, the check
+    and the convergence verdicts, and how much the prior shapes the results."""
+    from bayes_rr.sensitivity import HEADLINE_KEYS, sentences
+
     summary = inputs.summary
     if not summary["diagnostics"]["ok"]:
         return (
             "<p>The sampler did not pass the convergence gate, so this report gives no "
-            "results. See the convergence section for the reasons and what to do.</p>"
+            "results. See the convergence appendix for the reasons and what to do.</p>"
         )
-    wrong = summary.get("wrong_calls") or {}
-    lead = ""
-    if wrong:
-        # The wrong-call rates come first: one item a sentence, then the table.
-        items = [wrong["weak_identification"]] if wrong.get("weak_identification") else []
-        items += list(wrong.get("readings", []))
-        lead = "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
-        lead += _rates_table(summary)
+    prob = summary["prob"]
+    found = {
+        (r["key"], r["scope"], r["level"]): r
+        for r in summary["estimands"]
+        if r.get("part") is None and r.get("appraiser") is None
+    }
+    rows = []
+    for key, level in ANSWER_KEYS:
+        for scope in ("study", "population"):
+            row = found.get((key, scope, level))
+            if row is None:
+                continue
+            rows.append([esc(glossary.name(key)), esc(glossary.SCOPES[scope]),
+                         _percent_interval(row)])  # fmt: skip
+    parts = []
+    if rows:
+        parts.append(
+            _table(
+                ["result", "for", f"estimate ({prob:.0%} {summary['interval_description']})"],
+                rows,
+                {2},
+            )
+        )
+    items = [lim["sentence"] for lim in summary.get("limitations", [])]
+    items += [row["sentence"] for row in summary.get("criteria", [])]
     if summary.get("criteria"):
-        lead += (
-            "<p>Acceptance criteria (thresholds set by the user's organisation, not "
-            "universal limits):</p><ul>"
-            + "".join(f"<li>{esc(row['sentence'])}</li>" for row in summary["criteria"])
-            + "</ul>"
-        )
-    sentences = [lim["sentence"] for lim in summary.get("limitations", [])]
-    sentences += list(summary["readings"])
-    from bayes_rr.sensitivity import sentences as prior_sentences
-
+        items.append("The criteria's thresholds are set by the user's organisation; they are "
+                     "not universal limits.")  # fmt: skip
+    if inputs.checks is not None:
+        items.append(f"Model check: {inputs.checks['posterior_predictive']['verdict']}.")
+    else:
+        items.append("The model checks were not run ('bayes-rr check').")
+    diag = summary["diagnostics"]
+    items.append(
+        f"The sampler passed the convergence gate (r_hat at most {diag['max_r_hat']:.3f}, "
+        f"effective sample size at least {diag['min_ess_bulk']:.0f})."
+    )
     earlier = summary.get("prior_from")
-    sentences += prior_sentences(summary.get("prior_sensitivity") or {}, bool(earlier))[:1]
-    checks = inputs.checks
-    if checks is not None:
-        ppc = checks["posterior_predictive"]
-        sentences.append(f"Posterior predictive check: {ppc['verdict']}.")
-    return lead + "<p>" + " ".join(esc(s) for s in sentences) + "</p>"
+    items += sentences(summary.get("prior_sensitivity") or {}, bool(earlier), HEADLINE_KEYS)
+    parts.append("<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>")
+    return "".join(parts)
+
+
+def _glossary_section() -> str:
+    terms = "".join(
+        f"<dt>{esc(name)}</dt><dd>{esc(meaning)}</dd>"
+        for name, meaning in glossary.GLOSSARY.values()
+    )
+    scopes = "".join(
+        f"<dt>scope: {esc(words)}</dt><dd>{esc(_SCOPE_MEANING[key])}</dd>"
+        for key, words in glossary.SCOPES.items()
+    )
+    return f"<dl class='glossary'>{terms}{scopes}</dl>"
+
+
+_SCOPE_MEANING = {
+    "study": "results about the appraisers who took part in the study, on the study's parts",
+    "population": "results about an appraiser not in the study, drawn from the same "
+    "population of appraisers, on the study's parts",
+}
 
 
 def _study_section(inputs: ReportInputs) -> str:
@@ -436,24 +494,26 @@ def _prior_section(inputs: ReportInputs) -> str:
             "then means the data say little about it.</p>"
         )
         parts.append("<p>" + " ".join(esc(t) for t in sentences(block, bool(earlier))) + "</p>")
-        rows = [
-            [
-                esc(r["key"].replace("_", " ")),
-                esc(r["scope"]),
-                f"{r['prior']:.3f}",
-                f"{r['likelihood']:.3f}",
-                esc(r["verdict_words"]),
-            ]
-            for r in block["rows"]
-        ]
-        parts.append(
-            _table(
-                ["result", "scope", "prior sensitivity", "likelihood sensitivity", "reading"],
-                rows,
-                {2, 3},
-            )
-        )
+        parts.append("<p>Every result's figures are in appendix E.</p>")
     return "".join(parts)
+
+
+def _sensitivity_appendix(inputs: ReportInputs) -> str:
+    block = inputs.summary.get("prior_sensitivity")
+    if not block or not block.get("rows"):
+        return ""
+    rows = [
+        [
+            esc(glossary.name(r["key"])),
+            esc(r["scope"]),
+            f"{r['prior']:.3f}",
+            f"{r['likelihood']:.3f}",
+            esc(r["verdict_words"]),
+        ]
+        for r in block["rows"]
+    ]
+    header = ["result", "scope", "prior sensitivity", "likelihood sensitivity", "reading"]
+    return _table(header, rows, {2, 3})
 
 
 def _convergence_section(inputs: ReportInputs) -> str:
@@ -519,19 +579,25 @@ def _results_section(inputs: ReportInputs) -> str:
     plug = classical["classical"]["plug_in"]["study"]
     corr = classical["classical"]["corrected"]["study"]
     table_rows = []
-    for key, label in STUDY_ROWS:
+    for key in STUDY_KEYS:
         if (key, "study") not in rows and (key, "population") not in rows:
             continue
         table_rows.append(
             [
-                esc(label),
+                esc(glossary.name(key)),
                 _interval(rows.get((key, "study"))),
                 _interval(rows.get((key, "population"))),
                 _num(plug.get(key)),
                 _num(corr.get(key)),
             ]
         )
-    rates = []  # the wrong-call rates table stands in the first section
+    rates = []
+    wrong = summary.get("wrong_calls") or {}
+    if wrong:
+        items = [wrong["weak_identification"]] if wrong.get("weak_identification") else []
+        items += list(wrong.get("readings", []))
+        rates += ["<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>",
+                  _rates_table(summary)]  # fmt: skip
     if inputs.figures.get("call_curves") is not None:
         rates += [
             _curve_table(summary),
@@ -558,67 +624,83 @@ def _results_section(inputs: ReportInputs) -> str:
         "<ul>" + "".join(f"<li>{esc(s)}</li>" for s in summary["readings"]) + "</ul>",
         _difference_sentence(summary, classical),
         figure_tag(inputs.figures.get("study_densities"), "posterior densities, study level"),
-        "<h3>Per part</h3>",
-        figure_tag(inputs.figures.get("per_part"), "per-part variances with intervals"),
     ]
     appraisers = figure_tag(inputs.figures.get("appraisers"), "appraiser call rates")
     if appraisers:
         parts += ["<h3>Per appraiser</h3>", appraisers]
     parts.append(_comparisons(inputs))
-    parts.append("<h3>Classical statistics</h3>")
-    parts.append(_classical_tables(classical))
     return "".join(parts)
 
 
-def _classical_tables(classical: dict) -> str:
+def _share_cell(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    wilson = next((i for i in row["intervals"] if i["method"].startswith("Wilson")),
+                  row["intervals"][0])  # fmt: skip
+    count = f"{row.get('agreed', row.get('errors'))}/{row.get('parts', row.get('calls'))}"
+    return (
+        f"{row.get('share', row.get('rate')):.0%} ({count})<br>"
+        f"<span class='note'>{wilson['lower']:.0%} to {wilson['upper']:.0%}</span>"
+    )
+
+
+def _kappa_cell(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    interval = ""
+    if row.get("lower") is not None and row.get("upper") is not None:
+        interval = f"<br><span class='note'>{row['lower']:.2f} to {row['upper']:.2f}</span>"
+    return f"{row['kappa']:.2f}{interval}"
+
+
+def _classical_section(classical: dict, has_reference: bool) -> str:
+    """The classical figures of the study, one row per appraiser with that appraiser's
+    figures side by side, and a row for the appraisers together."""
+    from bayes_rr.classical import by_appraiser
+
     prob = classical["prob"]
-    agreement = [
-        [
-            esc(r["kind"].replace("_", " ")),
-            esc(r["appraiser"] or "all"),
-            f"{r['agreed']}/{r['parts']}",
-            f"{r['share']:.1%}",
-            " ; ".join(
-                f"{esc(i['method'])} {i['lower']:.1%} to {i['upper']:.1%}" for i in r["intervals"]
-            ),
-        ]
-        for r in classical["agreement"]
-    ]
-    kappa = [
-        [
-            esc(r["kind"].replace("_", " ")),
-            esc(" vs ".join(x for x in (r["appraiser"], r["other"]) if x) or "all"),
-            esc(r["statistic"]),
-            _num(r["kappa"], 3),
-            _num(r.get("se_fleiss_1971", r.get("se_fce_1969")), 3),
-            _num(r["z"], 1),
-        ]
+    header = ["appraiser", "parts called alike on every own trial", "kappa of own trials"]
+    if has_reference:
+        header += ["parts matching the reference on every trial", "kappa with the reference",
+                   "false reject rate (calls)", "false accept rate (calls)"]  # fmt: skip
+    body = []
+    for item in by_appraiser(classical):
+        row = [esc(item["appraiser"] or "all appraisers together"), _share_cell(item["own"]),
+               _kappa_cell(item["own_kappa"])]  # fmt: skip
+        if has_reference:
+            row += [_share_cell(item["reference"]), _kappa_cell(item["reference_kappa"]),
+                    _share_cell(item["false_reject_rate"]),
+                    _share_cell(item["false_accept_rate"])]  # fmt: skip
+        body.append(row)
+    pairs = [
+        [esc(f"{r['appraiser']} and {r['other']}"), _kappa_cell(r)]
         for r in classical["kappa"]
-    ]
-    errors = [
-        [
-            esc(r["key"].replace("_", " ")),
-            esc(r["appraiser"] or "all"),
-            f"{r['errors']}/{r['calls']}",
-            f"{r['rate']:.1%}",
-            f"{r['intervals'][0]['lower']:.1%} to {r['intervals'][0]['upper']:.1%}",
-        ]
-        for r in classical["error_rates"]
+        if r["kind"] == "appraiser_pair"
     ]
     out = (
-        f"<p>Agreement over parts ({prob:.0%} intervals):</p>"
-        + _table(["kind", "appraiser", "agreed/parts", "share", "intervals"], agreement, {2, 3})
-        + "<p>Kappa (standard error of Fleiss (1971) or Fleiss, Cohen &amp; Everitt (1969); "
-        "z uses the standard error under no agreement beyond chance):</p>"
-        + _table(["kind", "who", "statistic", "kappa", "SE", "z"], kappa, {3, 4, 5})
+        f"<p>The closed-form figures of the same calls, for comparison with the posterior "
+        f"and for readers used to them. Shares with their {prob:.0%} Wilson intervals; "
+        f"Fleiss' kappa with a {prob:.0%} percentile bootstrap interval over parts (the "
+        "textbook standard error under no agreement serves only the test of no agreement "
+        "and is in classical.json, with the z statistics). The 'all appraisers together' "
+        "row counts a part as called alike when every call of every appraiser agrees. "
+        "Error rates treat each call as independent, which repeated calls on a part are "
+        "not: the posterior rates above account for that.</p>"
+        + _table(header, body, set(range(1, len(header))))
     )
-    if errors:
+    if pairs:
         out += (
-            f"<p>Calls against the reference status ({prob:.0%} exact intervals; calls "
-            "treated as independent):</p>"
-            + _table(["rate", "appraiser", "errors/calls", "rate", "interval"], errors, {2, 3})
+            "<p>Cohen's kappa of each pair of appraisers: every call of one paired with every "
+            "call of the other on the same part (so it does not depend on how trials are "
+            f"numbered), with a {prob:.0%} bootstrap interval over parts.</p>"
+            + _table(["pair", "Cohen's kappa"], pairs, {1})
         )
     return out
+
+
+def _by_kind(value: float) -> str:
+    """Counts as whole numbers, shares and means to three decimals."""
+    return str(int(value)) if float(value).is_integer() else f"{value:.3f}"
 
 
 def _checks_section(inputs: ReportInputs) -> str:
@@ -629,9 +711,9 @@ def _checks_section(inputs: ReportInputs) -> str:
     rows = [
         [
             esc(s["description"]),
-            _num(s["observed"], 3),
-            f"{s['replicated_mean']:.3f} ({s['replicated_lower']:.3f} to "
-            f"{s['replicated_upper']:.3f})",
+            _by_kind(s["observed"]),
+            f"{_by_kind(s['replicated_mean'])} ({_by_kind(s['replicated_lower'])} to "
+            f"{_by_kind(s['replicated_upper'])})",
             _num(s["p_value"], 3),
             "<span class='flag'>FLAG</span>" if s["flagged"] else "",
         ]
@@ -695,21 +777,31 @@ def render_report(inputs: ReportInputs) -> str:
         else "<p class='banner'>NOT CONVERGED: the sampler did not pass the convergence gate. "
         "These results must not be used; no result tables are shown.</p>"
     )
-    sections = [("first", "Findings in brief", _findings(inputs))]
+    has_reference = bool(summary["design"].get("has_reference"))
+    sections = [("answer", "The answer in brief", _answer(inputs))]
     sections += [
+        ("", "Cautions", _cautions_section(inputs)),
         ("", "The study", _study_section(inputs)),
-        ("", "The model and its assumptions", _model_section(inputs)),
-        ("", "Did the sampler converge?", _convergence_section(inputs)),
     ]
     if ok:
         sections += [
             ("", "Results", _results_section(inputs)),
+            ("", "Classical statistics", _classical_section(inputs.classical, has_reference)),
+            ("", "Does the model fit the data?", _checks_section(inputs)),
             ("", "How much the prior matters", _prior_section(inputs)),
             *([("", "Models compared", _comparison_section(inputs))] if inputs.comparison else []),
-            ("", "Does the model reproduce the data?", _checks_section(inputs)),
         ]
+    per_part = figure_tag(inputs.figures.get("per_part"), "per-part variances with intervals")
     sections += [
-        ("", "Cautions and limitations", _cautions_section(inputs)),
+        ("appendix-start", "Appendix A. Convergence", _convergence_section(inputs)),
+        ("", "Appendix B. The model as fitted", _model_section(inputs)),
+        *([("", "Appendix C. Per-part results", per_part)] if ok and per_part else []),
+        ("", "Appendix D. Glossary", _glossary_section()),
+        *(
+            [("", "Appendix E. Prior sensitivity of every result", _sensitivity_appendix(inputs))]
+            if ok and _sensitivity_appendix(inputs)
+            else []
+        ),
         ("", "Provenance", _provenance_section(inputs)),
     ]
     body = "".join(

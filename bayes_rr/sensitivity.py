@@ -25,6 +25,7 @@ import warnings
 import numpy as np
 import xarray as xr
 
+from bayes_rr import glossary
 from bayes_rr.hyperpriors import log_prior
 from bayes_rr.spec import ModelSpec
 
@@ -129,7 +130,7 @@ def sentences(block: dict, earlier: bool = False, keys: tuple[str, ...] | None =
     rows = block["rows"]
     if keys is not None:
         rows = [r for r in rows if r["key"] in keys]
-    name = lambda r: f"{r['scope']} {r['key'].replace('_', ' ')}"  # noqa: E731
+    name = lambda r: f"{glossary.name(r['key'])} ({r['scope']})"  # noqa: E731
     shaped = [name(r) for r in rows if r["verdict"] != "data"]
     weak = [name(r) for r in rows if r["verdict"] == "prior"]
     prior_words = "the prior (the earlier study among it)" if earlier else "the prior"

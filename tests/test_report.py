@@ -88,9 +88,11 @@ def test_report_is_valid_self_contained_html(report_html):
 
 
 def test_report_sections_and_cautions(report_html):
-    for heading in ("Findings in brief", "The study", "The model and its assumptions",
-                    "Did the sampler converge?", "Results", "Does the model reproduce the data?",
-                    "Cautions and limitations", "Provenance"):  # fmt: skip
+    for heading in ("The answer in brief", "Cautions", "The study", "Results",
+                    "Classical statistics", "Does the model fit the data?",
+                    "How much the prior matters", "Appendix A. Convergence",
+                    "Appendix B. The model as fitted", "Appendix D. Glossary",
+                    "Provenance"):  # fmt: skip
         assert f"<h2>{heading}</h2>" in report_html
     assert "posterior predictive check" in report_html
     assert "do not replace the organisation&#x27;s quality procedures" in report_html
@@ -218,7 +220,7 @@ def test_report_in_headless_chromium(report_html, fit_dirs, tmp_path):
     proc = _run_chromium(["--dump-dom", page.as_uri()], tmp_path)
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert _console_errors(proc.stderr) == []
-    assert "Findings in brief" in proc.stdout
+    assert "The answer in brief" in proc.stdout
     shot = tmp_path / "shot.png"
     proc = _run_chromium([f"--screenshot={shot}", "--window-size=1200,1600", page.as_uri()],
                          tmp_path)  # fmt: skip
@@ -231,6 +233,37 @@ def test_report_in_headless_chromium(report_html, fit_dirs, tmp_path):
     assert pdf.exists(), proc.stderr[-2000:]
     pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf.read_bytes()))
     assert pages > 1
+    # the report proper (before the appendices) prints on at most 8 A4 pages
+    html_text = page.read_text(encoding="utf-8")
+    cut = html_text.index('<section class="appendix-start">')
+    main = tmp_path / "main.html"
+    main.write_text(html_text[:cut] + "</body></html>\n", encoding="utf-8")
+    pdf_main = tmp_path / "main.pdf"
+    _run_chromium([f"--print-to-pdf={pdf_main}", "--no-pdf-header-footer", main.as_uri()], tmp_path)
+    main_pages = len(re.findall(rb"/Type\s*/Page[^s]", pdf_main.read_bytes()))
+    assert 1 < main_pages <= 8, main_pages
+
+
+def test_nothing_overflows_a_printed_page_width(report_html, fit_dirs, tmp_path):
+    """Measured in the page: with the window as wide as an A4 page's printable width
+    (186 mm, 703 CSS px), no element's right edge passes the window's."""
+    page = (fit_dirs["crossed-logit"] / "report.html").read_text(encoding="utf-8")
+    probe = (
+        "<script>window.addEventListener('load', () => {"
+        "const width = document.documentElement.clientWidth; const wide = [];"
+        "for (const el of document.body.querySelectorAll('*')) {"
+        "  const box = el.getBoundingClientRect();"
+        "  if (box.right > width + 1) wide.push(el.tagName + ':' + Math.round(box.right)); }"
+        "document.body.setAttribute('data-overflow', wide.length ? wide.slice(0, 5).join(' ')"
+        " : 'none'); });</script>"
+    )
+    probed = tmp_path / "probed.html"
+    probed.write_text(page.replace("</body>", probe + "</body>"), encoding="utf-8")
+    proc = _run_chromium(["--window-size=703,1000", "--virtual-time-budget=3000", "--dump-dom",
+                          probed.as_uri()], tmp_path)  # fmt: skip
+    found = re.search(r'data-overflow="([^"]*)"', proc.stdout)
+    assert found is not None, proc.stdout[-500:]
+    assert found.group(1) == "none"
 
 
 def test_a_dollar_in_a_name_is_not_drawn_as_mathematics():

@@ -1,0 +1,82 @@
+"""One name and one meaning per result, used by the terminal, summary.json and the
+report alike (so a quantity never goes by several names)."""
+
+from __future__ import annotations
+
+# key -> (name, meaning)
+GLOSSARY: dict[str, tuple[str, str]] = {
+    "call_rate": ("reject-call rate", "the probability that a call on a part is reject"),
+    "rr_variance": (
+        "total variance T",
+        "the variance of one 0/1 call, pi(1 - pi): repeatability plus reproducibility",
+    ),
+    "repeatability_variance": (
+        "repeatability variance R",
+        "the part of T from an appraiser disagreeing with themself: the mean of p(1 - p)",
+    ),
+    "reproducibility_variance": (
+        "reproducibility variance V",
+        "the part of T from appraisers differing: the variance of p over appraisers",
+    ),
+    "rr_sd": ("total standard deviation", "the square root of T"),
+    "repeatability_sd": ("repeatability standard deviation", "the square root of R"),
+    "reproducibility_sd": ("reproducibility standard deviation", "the square root of V"),
+    "reproducibility_share": (
+        "reproducibility share V/T",
+        "the share of the calls' inconsistency due to appraisers differing",
+    ),
+    "repeatability_share": (
+        "repeatability share R/T",
+        "the share of the calls' inconsistency due to appraisers' own inconsistency",
+    ),
+    "repeat_disagreement": (
+        "repeat disagreement 2R",
+        "the probability that two calls by one appraiser on one part disagree",
+    ),
+    "cross_disagreement": (
+        "cross disagreement 2T",
+        "the probability that two calls on one part by two appraisers disagree",
+    ),
+    "appraiser_bias_variance": (
+        "V from appraisers' leaning",
+        "the part of V from appraisers leaning the same way on every part",
+    ),
+    "interaction_variance": (
+        "V from part-specific disagreement",
+        "the part of V from appraisers disagreeing differently on different parts",
+    ),
+    "false_reject_rate": ("false reject rate", "the share of good parts called reject"),
+    "false_accept_rate": ("false accept rate", "the share of bad parts called accept"),
+    "reference_agreement": (
+        "agreement with the reference",
+        "the share of calls that match the part's reference status",
+    ),
+}
+
+SCOPES = {
+    "study": "the study's appraisers",
+    "population": "a new appraiser from the same population",
+}
+"""Scopes in words (estimands.md): results about the appraisers who took part, or about
+an appraiser not in the study."""
+
+
+def name(key: str) -> str:
+    """The result's name (the key itself, spaced, when the glossary has none)."""
+    base, _, rest = key.partition("[")
+    found = GLOSSARY.get(base)
+    label = found[0] if found else base.replace("_", " ")
+    return f"{label} [{rest}" if rest else label
+
+
+def meaning(key: str) -> str:
+    found = GLOSSARY.get(key.partition("[")[0])
+    return found[1] if found else ""
+
+
+def as_dict() -> dict:
+    """The glossary block of summary.json."""
+    return {
+        "results": {k: {"name": n, "meaning": m} for k, (n, m) in GLOSSARY.items()},
+        "scopes": dict(SCOPES),
+    }
