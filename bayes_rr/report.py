@@ -15,6 +15,8 @@ from dataclasses import dataclass, field
 
 from bayes_rr import glossary
 from bayes_rr.describe import reference_rows
+from bayes_rr.estimands import POPULATION_ONLY_KEYS
+from bayes_rr.estimands import STUDY_KEYS as STUDY_LEVEL_KEYS
 
 CAUTIONS = (
     "Statistics support but do not replace the organisation's quality procedures, customer "
@@ -22,19 +24,11 @@ CAUTIONS = (
     "For safety-critical parts, defer to local codes and licensed practice.",
 )
 
-STUDY_KEYS = (
-    "rr_variance",
-    "repeatability_variance",
-    "reproducibility_variance",
-    "rr_sd",
-    "repeatability_sd",
-    "reproducibility_sd",
-    "reproducibility_share",
-    "repeat_disagreement",
-    "cross_disagreement",
-    "appraiser_bias_variance",
-    "interaction_variance",
-)
+STUDY_KEYS = tuple(
+    k for k in (*STUDY_LEVEL_KEYS, *POPULATION_ONLY_KEYS)
+    if k not in ("call_rate", "repeatability_share")
+)  # fmt: skip
+"""The study-level rows of the results table, in the contract's order."""
 
 STYLE = """
 body { font-family: Georgia, 'Times New Roman', serif; max-width: 60rem; margin: 2rem auto;

@@ -168,3 +168,27 @@ def test_bundled_demo_data_is_what_the_script_writes():
     for copy in (root / "examples" / "demo_study.csv", root / "bayes_rr" / "demo" /
                  "demo_study.csv"):  # fmt: skip
         assert copy.read_text() == text
+
+
+@pytest.mark.parametrize("width", [40, 60, 80, 120])
+def test_terminal_tables_never_cut_a_value(fits, small_sim, width):
+    """At any width the fit's and describe's tables wrap or stack their cells; none ends
+    in an ellipsis (rich's mark of a cut value)."""
+    from bayes_rr import cli
+    from bayes_rr.classical import classical_statistics
+    from bayes_rr.describe import describe_study
+    from bayes_rr.outputs import summary_document
+
+    result = fits["crossed-logit"]
+    classical = classical_statistics(small_sim.study).as_dict()
+    old = cli.out.width
+    cli.out.width = width
+    try:
+        with cli.out.capture() as captured:
+            cli.print_fit(summary_document(result), classical)
+            cli.print_description(describe_study(small_sim.study))
+    finally:
+        cli.out.width = old
+    text = captured.get()
+    assert "…" not in text
+    assert "0.0" in text  # the tables were printed
