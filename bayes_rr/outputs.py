@@ -250,9 +250,50 @@ def summary_document(result) -> dict:
     }
 
 
+COMPACT_NOTE = (
+    "compact: per-part estimand draws left out (their summaries are in summary.json), "
+    "derived draws and group effects as float32, raw non-centred effects (*_z) left out; "
+    "'fit --keep-all-draws' stores everything"
+)
+
+
+def stored_draws(idata, estimands, *, keep_all: bool = False):
+    """The InferenceData written to posterior.nc.
+
+    By default compact: what the later commands read (hyper-parameters in double
+    precision; effects, the cell log likelihood and study-, system- and appraiser-level
+    estimands in single precision, which keeps far more digits than the Monte Carlo
+    error) and nothing they do not (per-part estimand draws, summarised in
+    summary.json; the raw ``*_z`` copies of effects that are stored as effects).
+    """
+    import arviz as az
+    import numpy as np
+
+    from bayes_rr.fit import HYPER_PARAMETERS
+
+    groups = {g: idata[g] for g in idata.groups()}
+    groups["estimands"] = estimands
+    if not keep_all:
+        post = groups["posterior"]
+        raw = [v for v in post.data_vars if v.endswith("_z") and v[:-2] in post]
+        post = post.drop_vars(raw)
+        groups["posterior"] = post.assign({
+            v: post[v].astype("float32") for v in post.data_vars
+            if v not in HYPER_PARAMETERS and post[v].dtype == np.float64
+        })  # fmt: skip
+        kept = [v for v in estimands.data_vars if v.split("__")[1] != "part"]
+        groups["estimands"] = estimands[kept].astype("float32")
+        groups["log_likelihood"] = groups["log_likelihood"].astype("float32")
+    out = az.InferenceData(**{g: v for g, v in groups.items() if g != "estimands"})
+    out.add_groups({"estimands": groups["estimands"]}, warn_on_custom_groups=False)
+    return out
+
+
 def write_fit(result, out_dir: Path, *, overwrite: bool = False, classical: dict | None = None,
-              protected: tuple[Path, ...] = ()) -> Path:  # fmt: skip
+              protected: tuple[Path, ...] = (), keep_all_draws: bool = False) -> Path:  # fmt: skip
     """Write every output of a fit into ``out_dir`` (atomically: all or nothing).
+
+    ``keep_all_draws`` stores every draw in double precision (see :func:`stored_draws`).
 
     ``classical`` is the classical statistics document of the same data (computed
     here when not given). A fit folder from an earlier run is replaced only when
@@ -268,12 +309,10 @@ def write_fit(result, out_dir: Path, *, overwrite: bool = False, classical: dict
     tmp = _new_folder(out_dir.parent, f".{out_dir.name}.incomplete-")
     try:
         (tmp / MARKER).write_text(dumps({"generator": GENERATOR, "pid": os.getpid()}) + "\n")
-        idata = result.idata
-        groups = {"estimands": result.estimands}
-        full = idata.copy()
-        full.add_groups(groups, warn_on_custom_groups=False)
-        full.to_netcdf(str(tmp / "posterior.nc"), engine="h5netcdf")
+        stored = stored_draws(result.idata, result.estimands, keep_all=keep_all_draws)
+        stored.to_netcdf(str(tmp / "posterior.nc"), engine="h5netcdf")
         summary = summary_document(result)
+        summary["draws_stored"] = "all, in double precision" if keep_all_draws else COMPACT_NOTE
         (tmp / "summary.json").write_text(dumps(summary) + "\n", encoding="utf-8")
         frame = pd.DataFrame([asdict(r) for r in result.estimand_rows], columns=SUMMARY_COLUMNS)
         frame.insert(0, "use_results", summary["use_results"])

@@ -81,3 +81,27 @@ def test_damaged_folder_is_one_clean_line(damaged, command, fit_dirs):
     assert name in message or str(folder) in message, message
     assert "fit" in message  # says to run 'bayes-rr fit' again
     assert _hashes(folder) == before  # nothing in the damaged folder was touched
+
+
+def test_compact_draws_hold_what_later_commands_read(fits, tmp_path):
+    """The default posterior.nc keeps hyper-parameters exactly and the study-level
+    estimands to single precision, leaves out per-part estimand draws, and is smaller
+    than the full one ('--keep-all-draws')."""
+    import numpy as np
+
+    from bayes_rr.outputs import load_fit, write_fit
+
+    result = fits["crossed-logit"]
+    compact = load_fit(write_fit(result, tmp_path / "compact"))
+    full_dir = write_fit(result, tmp_path / "full", keep_all_draws=True)
+    full = load_fit(full_dir)
+    post = result.idata.posterior
+    np.testing.assert_array_equal(compact.idata.posterior["sigma_part"], post["sigma_part"])
+    name = "study__study__reproducibility_share"
+    np.testing.assert_allclose(compact.idata["estimands"][name], result.estimands[name],
+                               rtol=1e-6)  # fmt: skip
+    assert "study__part__rr_variance" not in compact.idata["estimands"]
+    assert "study__part__rr_variance" in full.idata["estimands"]
+    size = (tmp_path / "compact" / "posterior.nc").stat().st_size
+    assert size < 0.5 * (full_dir / "posterior.nc").stat().st_size
+    assert "compact" in compact.summary["draws_stored"]
