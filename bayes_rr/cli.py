@@ -734,7 +734,8 @@ def print_rates(summary: dict) -> None:
                            ("reference_agreement", "agreement with status"))
         if any(k[0] == key for k in rows)
     ]  # fmt: skip
-    table = Table(title=f"Wrong calls, study's parts ({prob:.0%} intervals)")
+    kind = "highest density" if summary["interval"] == "hdi" else "equal-tailed"
+    table = Table(title=f"Wrong calls, study's parts ({prob:.0%} {kind} intervals)")
     table.add_column("appraiser")
     for _, label in columns:
         table.add_column(label, justify="right")

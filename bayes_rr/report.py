@@ -274,7 +274,8 @@ def _rates_table(summary: dict) -> str:
     ])  # fmt: skip
     prob = summary["prob"]
     return (
-        f"<p>Wrong calls on the study's parts, posterior means with {prob:.0%} intervals. "
+        f"<p>Wrong calls on the study's parts, posterior means with {prob:.0%} "
+        f"{esc(summary['interval_description'])}s. "
         "False reject rate: the share of good parts called reject; false accept rate: the "
         "share of bad parts called accept.</p>"
         + _table(["appraiser", *(label for _, label in RATE_COLUMNS)], body, {1, 2, 3})

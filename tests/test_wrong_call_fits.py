@@ -119,7 +119,10 @@ def test_report_states_the_rates_first(reference_run, tmp_path):
     assert result.exit_code == 0, result.output
     html = out.read_text()
     first_section = html[html.index("<section") : html.index("</section>")]
-    assert "Of good parts, A1 rejects" in first_section
+    # the answer leads with the system's wrong-call rates, each scope named in words
+    assert first_section.index("false reject rate") < first_section.index("repeat disagreement")
+    assert "a new appraiser from the same population" in first_section
+    assert "Of good parts, A1 rejects" in html  # the readings, in the results
     assert "Appraisers compared" in html and "classical interval (Newcombe)" in html
 
 

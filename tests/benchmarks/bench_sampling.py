@@ -11,7 +11,7 @@ For each case, both runs sample the same simulated study in the same process:
 * ours: the bundled ``crossed-logit`` spec through ``bayes_rr`` (binomial cell
   likelihood, parameterization chosen by the ``auto`` rule, nutpie);
 * baseline: the same crossed logit written plainly in PyMC (non-centered effects,
-  one Bernoulli node per call, ``pm.sample`` defaults).
+  one Bernoulli node per call, ``pm.sample`` with 4 chains and BASELINE_DRAWS draws).
 
 ``wall_s`` is model build + compile + sampling; ``min_ess`` the smallest bulk or
 tail ESS over the study-level estimands and the hyper-parameters; ``ratio`` =
@@ -32,6 +32,9 @@ import numpy as np
 CASES = {"typical": (60, 3, 3), "large": (1000, 8, 3)}
 # Draws a chain for our run (None: the spec's default).
 DRAWS = {"typical": None, "large": None}
+# The baseline's draws a chain, with 4 chains: enough for a minimum ESS that is itself a
+# real estimate (2 chains of pm.sample's default 1000 gave 12 on the large case).
+BASELINE_DRAWS = {"typical": 1000, "large": 4000}
 HYPER = ("intercept", "sigma_part", "sigma_appraiser", "sigma_interaction")
 
 
@@ -74,7 +77,7 @@ def run_ours(study, spec_text=None, draws=None):
     return wall, _min_ess(posterior, study, spec), run.timings
 
 
-def run_baseline(study):
+def run_baseline(study, draws: int = 1000):
     import pymc as pm
 
     from bayes_rr.spec import load_spec
@@ -107,7 +110,8 @@ def run_baseline(study):
         pm.Bernoulli(
             "y", logit_p=mu + a[part] + b[app] + c[cell], observed=calls["call"].to_numpy()
         )
-        idata = pm.sample(progressbar=False, random_seed=1, compute_convergence_checks=False)
+        idata = pm.sample(draws=draws, chains=4, progressbar=False, random_seed=1,
+                          compute_convergence_checks=False)  # fmt: skip
     wall = time.perf_counter() - start
     return wall, _min_ess(idata.posterior, study, load_spec("crossed-logit"))
 
@@ -133,7 +137,7 @@ def main(argv=None) -> int:
             wall, ess, timings = run_ours(study, draws=DRAWS[name])
             ours.append(_figures(wall, ess) | {"timings": timings})
             if not args.no_baseline:
-                base.append(_figures(*run_baseline(study)))
+                base.append(_figures(*run_baseline(study, BASELINE_DRAWS[name])))
 
         def median(runs):
             if not runs:
