@@ -871,7 +871,7 @@ def run_fit(
     classical = classical_statistics(study, prob).as_dict()
     result = fit_study(
         study, spec, settings, prob=prob, interval=interval, production=production,
-        criteria=wanted, prior_from=earlier,
+        criteria=wanted, prior_from=earlier, two_stage=draws is None,
     )  # fmt: skip
     interrupts.checkpoint("writing", str(out_dir))
     write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=protected,
@@ -895,7 +895,12 @@ def fit(
     ] = None,
     # Ranges are checked by SamplerSettings (one line naming the limit), not by typer.
     draws: Annotated[
-        int | None, Col("--draws", help=f"Draws per chain (10 to {MAX_DRAWS:,}).")
+        int | None,
+        Col(
+            "--draws",
+            help=f"Draws per chain (10 to {MAX_DRAWS:,}). Without it: 1,000 first, and the "
+            "model's own number only if the convergence gate asks for more.",
+        ),
     ] = None,
     tune: Annotated[
         int | None, Col("--tune", help=f"Warm-up draws per chain (1 to {MAX_DRAWS:,}).")

@@ -123,9 +123,11 @@ class SampleRun:
 
     idata: object
     timings: dict = field(default_factory=dict)
+    compiled: object = None
+    """nutpie's compiled model, for another run of the same model without compiling."""
 
 
-def sample_model(model, settings: SamplerSettings) -> SampleRun:
+def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
     """Sample ``model`` (the cell log likelihood is added by the estimands step).
 
     Raises ``KeyboardInterrupt`` when a signal came during sampling, even where the
@@ -141,7 +143,8 @@ def sample_model(model, settings: SamplerSettings) -> SampleRun:
     if settings.sampler == "nutpie":
         import nutpie
 
-        compiled = nutpie.compile_pymc_model(model)
+        if compiled is None:
+            compiled = nutpie.compile_pymc_model(model)
         timings["compile_s"] = time.perf_counter() - start
         interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
         start = time.perf_counter()
@@ -177,7 +180,7 @@ def sample_model(model, settings: SamplerSettings) -> SampleRun:
             f"the sampler returned {got[0]} chains x {got[1]} draws instead of "
             f"{settings.chains} x {settings.draws}; nothing was written; run the fit again"
         )
-    return SampleRun(idata, timings)
+    return SampleRun(idata, timings, compiled)
 
 
 # ---------------------------------------------------------------------------

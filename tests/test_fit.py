@@ -185,3 +185,29 @@ def test_cli_fit_success_prints_table_and_reading(tmp_path, small_sim):
     assert "Two repeat calls" in result.output and "classical" in result.output
     summary = json.loads((tmp_path / "ok" / "summary.json").read_text())
     assert summary["interval"] == "eti" and summary["prob"] == 0.9
+
+
+def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatch):
+    """A first stage too short for the gate (4 x 50 draws cannot give an ESS of 400) is
+    followed by the full run of the same compiled model; the provenance records both."""
+    import nutpie
+
+    from bayes_rr import fit as fit_module
+    from bayes_rr.fit import fit_study
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.spec import load_spec
+
+    compiles = []
+    original = nutpie.compile_pymc_model
+    monkeypatch.setattr(nutpie, "compile_pymc_model",
+                        lambda model: compiles.append(1) or original(model))  # fmt: skip
+    monkeypatch.setattr(fit_module, "FIRST_STAGE_DRAWS", 50)
+    spec = load_spec("beta-binomial")
+    settings = SamplerSettings.from_spec(spec, draws=600, tune=500, chains=4, seed=2)
+    result = fit_study(small_sim.study, spec, settings, two_stage=True)
+    assert [s["draws"] for s in result.provenance["stages"]] == [50, 600]
+    assert result.idata.posterior.sizes["draw"] == 600
+    assert len(compiles) == 1
+    # without two stages, one run of the asked length
+    single = fit_study(small_sim.study, spec, settings)
+    assert [s["draws"] for s in single.provenance["stages"]] == [600]
