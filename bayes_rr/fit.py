@@ -28,8 +28,11 @@ from bayes_rr.limitations import Limitation, design_limitations, limitation_for,
 from bayes_rr.sampling import (
     Diagnostics,
     SamplerSettings,
+    cached_compiled,
     check_memory,
     convergence_gate,
+    design_key,
+    remember_compiled,
     sample_model,
 )
 from bayes_rr.spec import ModelSpec
@@ -154,15 +157,23 @@ def fit_study(
     started = datetime.now(UTC)
     interrupts.checkpoint("compiling", f"the {spec.name} model")
     t0 = time.perf_counter()
-    model = build_model(spec, study)
+    # A study of a design compiled before in this process (many simulated studies,
+    # a batch of one station's files) only swaps its calls into that compiled model.
+    key = design_key(spec, study)
+    compiled = None
+    if settings.sampler == "nutpie":
+        compiled = cached_compiled(key, study.cells["s"].to_numpy())
+    reused = compiled is not None
+    model = None if reused else build_model(spec, study)
     timings = {"build_s": time.perf_counter() - t0}
     stages = [settings]
     if two_stage and settings.draws > FIRST_STAGE_DRAWS:
         stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
-    compiled = None
     for number, stage in enumerate(stages, 1):
         run = sample_model(model, stage, compiled)
         compiled = run.compiled
+        if not reused and stage.sampler == "nutpie":
+            remember_compiled(key, compiled)
         for key, value in run.timings.items():
             timings[key] = timings.get(key, 0.0) + value
         summary = _summarise(run.idata, spec, study, stage, prob, interval, production)
@@ -203,6 +214,7 @@ def fit_study(
         "production": None if production is None else production.as_dict(),
         "seed": settings.seed,
         "sampler_settings": settings.as_dict(),
+        "compiled_model_reused": reused,
         "stages": [{"draws": stage.draws, "chains": stage.chains} for stage in stages[:number]],
         "timings": timings,
         "versions": package_versions(),

@@ -184,6 +184,58 @@ def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
 
 
 # ---------------------------------------------------------------------------
+# compiled models reused within a process
+
+COMPILED_CACHE_SIZE = 8
+"""Compiled models kept per process: one per (spec, design) in a run of many fits."""
+_COMPILED: dict[str, object] = {}
+
+
+def design_key(spec: ModelSpec, study) -> str:
+    """Hash of everything a compiled model depends on except the reject counts: the
+    spec, the coords, each cell's indices and number of calls, the reference columns
+    and the limits. Two studies with the same key differ only in their calls."""
+    import hashlib
+
+    cells = study.cells
+    digest = hashlib.sha256()
+    digest.update(spec.sha256.encode())
+    digest.update(repr((study.parts, study.appraisers, study.limits)).encode())
+    for column in ("part_index", "appraiser_index", "n"):
+        digest.update(np.ascontiguousarray(cells[column].to_numpy(dtype=np.int64)).tobytes())
+    for extra in (study.reference, study.reference_value):
+        digest.update(b"-" if extra is None else extra.to_numpy(dtype=float).tobytes())
+    return digest.hexdigest()
+
+
+def cached_compiled(key: str, calls: np.ndarray):
+    """The compiled model of ``key`` with ``calls`` as its reject counts, or None."""
+    from bayes_rr.families.common import OBSERVED_CALLS
+
+    compiled = _COMPILED.get(key)
+    if compiled is None:
+        return None
+    return compiled.with_data(**{OBSERVED_CALLS: calls})
+
+
+def remember_compiled(key: str, compiled) -> None:
+    """Keep a compiled model whose reject counts are replaceable (least recent out)."""
+    from bayes_rr.families.common import OBSERVED_CALLS
+
+    if compiled is None or OBSERVED_CALLS not in getattr(compiled, "shared_data", {}):
+        return  # e.g. the latent class model, whose likelihood is built from the calls
+    _COMPILED.pop(key, None)
+    _COMPILED[key] = compiled
+    while len(_COMPILED) > COMPILED_CACHE_SIZE:
+        _COMPILED.pop(next(iter(_COMPILED)))
+
+
+def forget_compiled() -> None:
+    """Drop every compiled model of this process."""
+    _COMPILED.clear()
+
+
+# ---------------------------------------------------------------------------
 # convergence gate
 
 

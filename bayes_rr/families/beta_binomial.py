@@ -8,6 +8,7 @@ from bayes_rr.data import StudyData
 from bayes_rr.families.common import (
     coords,
     group_effect,
+    observed_calls,
     pymc_prior,
     reference_term,
     resolve_parameterization,
@@ -38,7 +39,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             alpha=pi * phi,
             beta=(1.0 - pi) * phi,
             n=cells["n"].to_numpy(),
-            observed=cells["s"].to_numpy(),
+            observed=observed_calls(study),
             dims="cell",
         )
     return model

@@ -17,7 +17,7 @@ import pytensor.tensor as pt
 
 from bayes_rr.data import StudyData
 from bayes_rr.errors import DataError
-from bayes_rr.families.common import coords, pymc_prior
+from bayes_rr.families.common import coords, observed_calls, pymc_prior
 from bayes_rr.spec import ModelSpec
 
 P_FLOOR = 1e-12
@@ -87,5 +87,5 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
         for k in range(len(sides)):
             p = p + link_cdf(spec.link, signs[k] * (distance[:, k] - t_std[app, k]) / w_std[app])
         pm.Binomial("s", n=cells["n"].to_numpy(), p=pt.clip(p, P_FLOOR, 1 - P_FLOOR),
-                    observed=cells["s"].to_numpy(), dims="cell")  # fmt: skip
+                    observed=observed_calls(study), dims="cell")  # fmt: skip
     return model

@@ -72,6 +72,16 @@ APPRAISER_CORRELATION_ETA = 2.0
 """LKJ shape of the correlation of an appraiser's effects on accept and reject parts."""
 
 
+OBSERVED_CALLS = "observed_calls"
+"""Name of the shared variable that holds the reject counts per cell: a compiled model
+takes another study of the same design by replacing it (``with_data``), no compile."""
+
+
+def observed_calls(study: StudyData):
+    """The reject counts as model data, so that they can be replaced after compiling."""
+    return pm.Data(OBSERVED_CALLS, study.cells["s"].to_numpy(), dims="cell")
+
+
 def coords(study: StudyData) -> dict[str, list[str]]:
     cells = study.cells
     return {

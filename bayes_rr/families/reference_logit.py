@@ -17,6 +17,7 @@ from bayes_rr.families.common import (
     by_status,
     coords,
     group_effect,
+    observed_calls,
     pymc_prior,
     resolve_parameterization,
     status_intercepts,
@@ -64,6 +65,6 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             scale = pymc_prior("sigma_interaction", term.prior)
             eta = eta + group_effect("interaction_effect", scale, "cell",
                                      resolve_parameterization(term, study))  # fmt: skip
-        pm.Binomial("s", n=cells["n"].to_numpy(), logit_p=eta, observed=cells["s"].to_numpy(),
+        pm.Binomial("s", n=cells["n"].to_numpy(), logit_p=eta, observed=observed_calls(study),
                     dims="cell")  # fmt: skip
     return model
