@@ -194,9 +194,10 @@ def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatc
 
     from bayes_rr import fit as fit_module
     from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.sampling import SamplerSettings, forget_compiled
     from bayes_rr.spec import load_spec
 
+    forget_compiled()  # an earlier test may have compiled this design
     compiles = []
     original = nutpie.compile_pymc_model
     monkeypatch.setattr(nutpie, "compile_pymc_model",

@@ -1,0 +1,148 @@
+"""Study designs for planning and calibration, and the mix of parts in them."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from bayes_rr.data import StudyData, study_from_cells
+from bayes_rr.errors import SpecError
+from bayes_rr.spec import ModelSpec
+
+SIMULATED_FAMILIES = ("beta_binomial", "logit", "reference_logit")
+"""Families whose studies can be simulated from the model itself (their calls are an
+observed variable of the PyMC model). The latent class model's likelihood is built
+from the observed patterns and the call-curve model needs reference values: neither
+is simulated yet."""
+BORDERLINE = (0.1, 0.9)
+"""A part is borderline when a typical appraiser rejects it with a probability in this
+range: repeat calls on it disagree, so it carries the information on repeatability."""
+POOL_FACTOR = 10
+"""Candidate parts drawn per part of the design when the share of borderline parts is
+set: the study's parts are picked from them."""
+MAX_PARTS, MAX_APPRAISERS, MAX_TRIALS = 2000, 50, 20
+
+PART_MIX_HELP = (
+    "share of parts of each kind. With a reference column (reference-logit): the share "
+    "of parts whose reference status is 'reject' (default 0.5). Without one: the share "
+    "of borderline parts, those a typical appraiser rejects with a probability between "
+    "10% and 90% (default: parts as the prior's population gives them). Borderline "
+    "parts are where calls disagree, so they decide how well repeatability and "
+    "reproducibility are estimated."
+)
+
+
+@dataclass(frozen=True)
+class Design:
+    """One study design: parts x appraisers x trials, and the mix of parts."""
+
+    parts: int
+    appraisers: int
+    trials: int
+    part_mix: float | None = None
+
+    @property
+    def label(self) -> str:
+        mix = "" if self.part_mix is None else f" mix {self.part_mix:g}"
+        return f"{self.parts}x{self.appraisers}x{self.trials}{mix}"
+
+    def as_dict(self) -> dict:
+        return {"parts": self.parts, "appraisers": self.appraisers, "trials": self.trials,
+                "part_mix": self.part_mix}  # fmt: skip
+
+
+def parse_counts(text: str | int, option: str, least: int, most: int) -> tuple[int, ...]:
+    """``"20,40,60"`` -> (20, 40, 60), each a whole number in [least, most]."""
+    out = []
+    for item in str(text).split(","):
+        item = item.strip()
+        try:
+            value = int(item)
+        except ValueError:
+            value = None
+        if value is None or not least <= value <= most:
+            raise SpecError(
+                f"{option} {text!r}: {item!r} is not a whole number from {least} to {most}; "
+                f"give one or more, separated by commas (e.g. {option} 20,40)"
+            )
+        out.append(value)
+    return tuple(sorted(set(out)))
+
+
+def needs_reference(spec: ModelSpec) -> bool:
+    """Whether simulated studies carry a reference status per part: for the model that
+    needs it. The other models' optional reference term stays out (studies without a
+    reference column, the usual case for a repeatability study)."""
+    return spec.family == "reference_logit"
+
+
+def check_simulated(spec: ModelSpec, part_mix: float | None) -> None:
+    """Refuse a model or part mix the simulator cannot serve, before any work."""
+    if spec.family not in SIMULATED_FAMILIES:
+        raise SpecError(
+            f"model {spec.name!r} (family {spec.family}): studies can be simulated for the "
+            f"families {', '.join(SIMULATED_FAMILIES)} only; choose one of their models"
+        )
+    if part_mix is not None and not 0 <= part_mix <= 1:
+        raise SpecError(f"--part-mix {part_mix!r}: expected a share from 0 to 1")
+    if needs_reference(spec) and part_mix is not None and not 0 < part_mix < 1:
+        raise SpecError(
+            f"--part-mix {part_mix!r}: a model with reference statuses needs parts of both "
+            "statuses; give a share strictly between 0 and 1"
+        )
+
+
+def design_grid(
+    parts: tuple[int, ...], appraisers: tuple[int, ...], trials: tuple[int, ...],
+    part_mix: float | None,
+) -> list[Design]:  # fmt: skip
+    """Every combination, smallest study (fewest calls) first."""
+    grid = [Design(p, a, t, part_mix) for p in parts for a in appraisers for t in trials]
+    return sorted(grid, key=lambda d: (d.parts * d.appraisers * d.trials, d.parts, d.appraisers))
+
+
+def reference_statuses(parts: int, reject_share: float) -> np.ndarray:
+    """Statuses with round(share x parts) rejects (at least one of each status); parts are
+    exchangeable, so which parts they are does not matter."""
+    rejects = min(max(1, round(reject_share * parts)), parts - 1)
+    status = np.zeros(parts, dtype=int)
+    status[:rejects] = 1
+    return status
+
+
+def skeleton_study(design: Design, spec: ModelSpec, parts: int | None = None) -> StudyData:
+    """A study of the design with every call an accept: the layout that simulated calls
+    fill in. ``parts`` overrides the design's (a pool of candidate parts)."""
+    count = parts or design.parts
+    n = np.full((count, design.appraisers), design.trials, dtype=int)
+    reference = None
+    if needs_reference(spec):
+        share = 0.5 if design.part_mix is None else design.part_mix
+        reference = reference_statuses(count, share)
+    return study_from_cells(
+        [f"P{k + 1:04d}" for k in range(count)],
+        [f"A{j + 1:02d}" for j in range(design.appraisers)],
+        n,
+        np.zeros_like(n),
+        reference=reference,
+        source=f"simulated design {design.label}",
+    )
+
+
+def pick_parts(
+    typical_rate: np.ndarray, wanted: int, borderline_share: float, rng: np.random.Generator
+) -> tuple[np.ndarray, float]:
+    """Indices of ``wanted`` parts from a pool, ``borderline_share`` of them borderline;
+    when the pool has too few of one kind the other fills in. Returns the indices and
+    the share of borderline parts reached."""
+    low, high = BORDERLINE
+    border = np.flatnonzero((typical_rate >= low) & (typical_rate <= high))
+    clear = np.flatnonzero((typical_rate < low) | (typical_rate > high))
+    n_border = min(round(borderline_share * wanted), border.size)
+    n_clear = min(wanted - n_border, clear.size)
+    n_border = wanted - n_clear
+    picked = np.concatenate(
+        [rng.choice(border, n_border, replace=False), rng.choice(clear, n_clear, replace=False)]
+    )
+    return np.sort(picked), n_border / wanted

@@ -1,0 +1,276 @@
+"""Planning the next study: for each design of a grid, simulate studies from the prior
+(or from an earlier fit's posterior), fit each, and tabulate the interval widths to
+expect and, with acceptance criteria, the assurance (the share of studies in which
+every criterion is met)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from bayes_rr import DEFAULT_PROB
+from bayes_rr.errors import SpecError
+from bayes_rr.simulation.designs import Design, check_simulated
+from bayes_rr.simulation.quick import PLAN_KEYS, interval, quick_fit, simulation_settings
+from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
+from bayes_rr.simulation.seeds import derived_seed, signature
+from bayes_rr.simulation.truths import simulate_design
+from bayes_rr.spec import ModelSpec
+
+PLAN_FILE = "plan.json"
+FIGURE_FILE = "plan_widths.png"
+MAX_SIMS = 10_000
+
+
+@dataclass(frozen=True)
+class PlanRequest:
+    """What to plan: the model, the designs, how many simulations, and the target."""
+
+    spec: ModelSpec
+    designs: tuple[Design, ...]
+    sims: int
+    seed: int
+    criteria: tuple = ()
+    target_width: float | None = None
+    target_assurance: float | None = None
+    target_key: str | None = None
+    prob: float = DEFAULT_PROB
+    earlier_folder: str | None = None
+    draws: int | None = None
+    tune: int | None = None
+
+
+def default_target_key(spec: ModelSpec) -> str:
+    """The result that usually decides a design: the false accept rate when parts have a
+    reference status, otherwise the reproducibility variance (few appraisers pin it
+    down slowest)."""
+    if spec.family == "reference_logit":
+        return "study__system__false_accept_rate"
+    return "study__study__reproducibility_variance"
+
+
+def resolve_target_key(key: str | None, spec: ModelSpec) -> str:
+    """A full result name from a short key (``repeatability_variance``) or a full one."""
+    if key is None:
+        return default_target_key(spec)
+    names = {name: name for name in PLAN_KEYS}
+    for name in PLAN_KEYS:
+        names.setdefault(name.split("__")[-1], name)
+    if key not in names:
+        short = sorted({n.split("__")[-1] for n in PLAN_KEYS})
+        raise SpecError(f"--target-key {key!r}: expected one of {short} (or a full name)")
+    return names[key]
+
+
+def check_request(request: PlanRequest) -> None:
+    check_simulated(request.spec, request.designs[0].part_mix if request.designs else None)
+    if not 2 <= request.sims <= MAX_SIMS:
+        raise SpecError(f"--sims {request.sims}: expected a whole number from 2 to {MAX_SIMS}")
+    if request.target_width is not None and not request.target_width > 0:
+        raise SpecError(f"--target-width {request.target_width!r}: expected a positive width")
+    if request.target_assurance is not None:
+        if not 0 < request.target_assurance < 1:
+            raise SpecError(f"--target-assurance {request.target_assurance!r}: expected a "
+                            "share between 0 and 1")  # fmt: skip
+        if not request.criteria:
+            raise SpecError("--target-assurance needs --criteria FILE: assurance is the share "
+                            "of simulated studies in which every criterion is met")  # fmt: skip
+    if request.target_width is not None and request.target_assurance is not None:
+        raise SpecError("give --target-width or --target-assurance, not both")
+
+
+def plan_task(payload: dict) -> dict:
+    """One simulated study fitted: the widths of the planned results and whether every
+    criterion was met."""
+    fit, estimands = quick_fit(payload["study"], payload["spec"], payload["settings"],
+                               PLAN_KEYS)  # fmt: skip
+    widths = {}
+    for key in PLAN_KEYS:
+        if key in fit.draws:
+            low, high = interval(fit.draws[key], payload["prob"])
+            widths[key] = high - low
+    met = None
+    probabilities = []
+    if payload["criteria"]:
+        from bayes_rr.decisions import evaluate_criteria
+
+        rows = evaluate_criteria(payload["criteria"], estimands)
+        probabilities = [row["probability"] for row in rows]
+        met = all(row["met"] for row in rows)
+    return {
+        "widths": widths,
+        "criteria_met": met,
+        "criteria_probabilities": probabilities,
+        "converged": fit.ok,
+        "max_r_hat": fit.max_r_hat,
+        "min_ess": fit.min_ess,
+        "seconds": fit.seconds,
+        "compiled_reused": fit.compiled_reused,
+    }
+
+
+def _tasks(request: PlanRequest, earlier_posterior, analysis_spec: ModelSpec):
+    tasks, simulated = [], []
+    for d, design in enumerate(request.designs):
+        sim = simulate_design(request.spec, design, request.sims, derived_seed(request.seed, d),
+                              earlier_posterior=earlier_posterior)  # fmt: skip
+        simulated.append(sim)
+        for k in range(request.sims):
+            seed = derived_seed(request.seed, d, k)
+            settings = simulation_settings(analysis_spec, seed, draws=request.draws,
+                                           tune=request.tune)  # fmt: skip
+            payload = {"spec": analysis_spec, "study": sim.study(k), "settings": settings,
+                       "criteria": request.criteria, "prob": request.prob}  # fmt: skip
+            describe = {**design.as_dict(), "simulation": k + 1, "seed": seed}
+            tasks.append(Task(f"d{d:02d}-s{k:04d}", payload, describe))
+    return tasks, simulated
+
+
+def _summarise_design(design: Design, results: list[dict], failures: int, reached) -> dict:
+    converged = [r for r in results if r["converged"]]
+    widths, ranges = {}, {}
+    for key in PLAN_KEYS:
+        values = np.array([r["widths"][key] for r in converged if key in r["widths"]])
+        values = values[np.isfinite(values)]
+        if values.size:
+            widths[key] = float(np.median(values))
+            ranges[key] = [float(values.min()), float(values.max())]
+    met = [r["criteria_met"] for r in results if r["criteria_met"] is not None]
+    return {
+        **design.as_dict(),
+        "calls": design.parts * design.appraisers * design.trials,
+        "sims": len(results) + failures,
+        "fits_converged": len(converged),
+        "fits_failed": failures,
+        "expected_width": widths,
+        "width_range": ranges,
+        # a failed or unconverged fit cannot show a criterion met: it counts as not met
+        "assurance": (sum(met) / (len(results) + failures)) if met else None,
+        "borderline_share_reached": None if reached is None else float(np.median(reached)),
+        "seconds_per_fit": float(np.median([r["seconds"] for r in results])) if results
+        else None,
+    }  # fmt: skip
+
+
+def result_label(variable: str) -> str:
+    """``study__study__repeatability_variance`` -> "repeatability variance (study)"."""
+    from bayes_rr.glossary import name
+
+    scope, _, key = variable.split("__")
+    return f"{name(key)} ({scope})"
+
+
+def recommendation(rows: list[dict], request: PlanRequest, key: str) -> str:
+    """The smallest design (fewest calls) that reaches the target, in one sentence."""
+
+    def name(row: dict) -> str:
+        return (f"{row['parts']} parts x {row['appraisers']} appraisers x {row['trials']} "
+                f"trials ({row['calls']} calls)")  # fmt: skip
+
+    if request.target_assurance is not None:
+        goal = request.target_assurance
+        good = [r for r in rows if r["assurance"] is not None and r["assurance"] >= goal]
+        if good:
+            return (f"The smallest design whose simulated studies meet every criterion in at "
+                    f"least {goal:.0%} of cases is {name(good[0])}: assurance "
+                    f"{good[0]['assurance']:.0%}.")  # fmt: skip
+        best = max(rows, key=lambda r: r["assurance"] or 0)
+        highest = best["assurance"] or 0
+        return (f"No design of the grid reaches an assurance of {goal:.0%}; the highest is "
+                f"{highest:.0%} with {name(best)}. Try larger designs.")  # fmt: skip
+    label = result_label(key)
+    if request.target_width is not None:
+        goal = request.target_width
+        good = [r for r in rows if key in r["expected_width"] and r["expected_width"][key] <= goal]
+        if good:
+            return (f"The smallest design whose median {request.prob:.0%} interval for the "
+                    f"{label} is at most {goal:g} wide is {name(good[0])} (median width "
+                    f"{good[0]['expected_width'][key]:.3g}).")  # fmt: skip
+        known = [r for r in rows if key in r["expected_width"]]
+        if not known:
+            return f"No fit gave the {label}: check the model and the fits' failures."
+        best = min(known, key=lambda r: r["expected_width"][key])
+        return (f"No design of the grid reaches a median width of {goal:g} for the {label}; "
+                f"the narrowest is {best['expected_width'][key]:.3g} with {name(best)}. Try "
+                "larger designs.")  # fmt: skip
+    return ("No target was given (--target-width or --target-assurance): read the widths "
+            "against the precision the decision needs.")  # fmt: skip
+
+
+def run_plan(
+    request: PlanRequest, out: str | Path, *, workers: int | None = None,
+    scheduler: str | None = None, progress: bool = True, client=None,
+) -> dict:  # fmt: skip
+    """Run the plan on Dask and write ``plan.json`` and the width figure into ``out``."""
+    from bayes_rr import __version__
+    from bayes_rr.jsonio import dumps, write_bytes_atomic, write_text_atomic
+    from bayes_rr.outputs import GENERATOR
+    from bayes_rr.simulation.figures import width_figure
+
+    check_request(request)
+    key = resolve_target_key(request.target_key, request.spec)
+    out = Path(out)
+    earlier_posterior, analysis_spec, earlier = None, request.spec, None
+    if request.earlier_folder is not None:
+        from bayes_rr.earlier import prior_from_fit
+        from bayes_rr.outputs import load_fit
+
+        loaded = load_fit(request.earlier_folder)
+        analysis_spec, _ = prior_from_fit(loaded, 1.0, request.spec)
+        earlier_posterior = loaded.idata.posterior
+        earlier = {"folder": str(request.earlier_folder), "data_sha256": loaded.run["data_sha256"]}
+    settings = simulation_settings(analysis_spec, 0, draws=request.draws, tune=request.tune)
+    run_settings = {
+        "command": "plan", "spec_sha256": request.spec.sha256, "spec_name": request.spec.name,
+        "designs": [d.as_dict() for d in request.designs], "sims": request.sims,
+        "seed": request.seed, "prob": request.prob, "earlier": earlier,
+        "criteria": [c.__dict__ for c in request.criteria],
+        "sampler": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains},
+    }  # fmt: skip
+    prepare_run_dir(out, "plan", signature(run_settings))
+    tasks, simulated = _tasks(request, earlier_posterior, analysis_spec)
+    outcome = run_tasks(plan_task, tasks, out, client=client, workers=workers,
+                        scheduler=scheduler, progress=progress, what="simulated fits")  # fmt: skip
+    rows = []
+    for d, design in enumerate(request.designs):
+        prefix = f"d{d:02d}-"
+        results = [v for k, v in sorted(outcome.results.items()) if k.startswith(prefix)]
+        failed = sum(1 for k in outcome.failures if k.startswith(prefix))
+        rows.append(_summarise_design(design, results, failed, simulated[d].borderline_share))
+    document = {
+        "generator": f"{GENERATOR} {__version__}",
+        **run_settings,
+        "target": {
+            "key": key,
+            "width": request.target_width,
+            "assurance": request.target_assurance,
+        },
+        "designs": rows,
+        "recommendation": recommendation(rows, request, key),
+        "failures": list(outcome.failures.values()),
+        "resumed_tasks": outcome.resumed,
+        "notes": _notes(request, analysis_spec),
+    }
+    figure = width_figure(rows, request.prob)
+    write_bytes_atomic(out / FIGURE_FILE, figure)
+    write_text_atomic(out / PLAN_FILE, dumps(document) + "\n")
+    return document
+
+
+def _notes(request: PlanRequest, spec: ModelSpec) -> list[str]:
+    from bayes_rr.simulation.designs import PART_MIX_HELP
+    from bayes_rr.simulation.quick import SIM_ESS_MIN, SIM_R_HAT_MAX
+
+    source = ("the earlier fit's posterior (new parts and appraisers from the population it "
+              "describes)" if request.earlier_folder else "the model's prior")  # fmt: skip
+    return [
+        f"Studies were simulated from {source} and fitted with the model {spec.name}.",
+        f"Widths are of {request.prob:.0%} equal-tailed intervals, over the fits that met the "
+        f"simulation gate (r_hat <= {SIM_R_HAT_MAX}, bulk ESS >= {SIM_ESS_MIN}); a fit that "
+        "failed or missed the gate counts as not meeting the criteria.",
+        "Part mix: " + PART_MIX_HELP,
+        "A plan is only as good as the prior it simulates from: a prior wider than the "
+        "truth plans for studies larger than needed, a narrower one for too small ones.",
+    ]
