@@ -216,3 +216,19 @@ divergences; centered they pass."""
 
 SAMPLERS = ("nutpie", "pymc")
 SHARING = ("shared", "per_part")
+
+
+def default_model(study) -> tuple[str, str]:
+    """The model ``fit`` uses without ``--model``, and why, in a sentence."""
+    if study.reference is not None and study.reference.nunique() == 2:
+        return "reference-logit", (
+            "the data give each part's reference status, so the reference-logit model "
+            "estimates false reject and false accept rates (--model to choose another)"
+        )
+    if study.reference_value is not None and study.limits != (None, None):
+        return "call-curve", (
+            "the data give a measured reference value per part and a limit, so the "
+            "call-curve model estimates each appraiser's effective limit (--model to choose "
+            "another)"
+        )
+    return "crossed-logit", "model crossed-logit (--model to choose another)"
