@@ -65,11 +65,13 @@ def make_client(workers: int | None = None, scheduler: str | None = None):
                 "out for a cluster on this machine"
             ) from None
     count = workers or default_workers()
+    # The cluster's own log lines (start, close) are noise in a command's output.
+    logging.getLogger("distributed").setLevel(logging.ERROR)
     cluster = LocalCluster(
         n_workers=count,
         threads_per_worker=1,
         processes=True,
-        dashboard_address=None,
+        dashboard_address=":0",  # any free port: another cluster may hold the usual one
         silence_logs=logging.ERROR,
     )
     return Client(cluster)
