@@ -1117,12 +1117,25 @@ def report(
             help="Another fit folder of the same data to compare with (PSIS-LOO); repeat for more.",
         ),
     ] = None,
+    calibration: Annotated[
+        Path | None,
+        Col("--calibration", help="A 'bayes-rr calibrate' folder to include as evidence."),
+    ] = None,
 ) -> None:
     """Write one self-contained HTML report of a fit (runs the checks if needed)."""
     from bayes_rr.pipeline import report_fit
 
-    path = report_fit(fit_dir, out_file, title=title, site=site, notes=notes, overwrite=overwrite,
-                      criteria=criteria, compare=compare)  # fmt: skip
+    path = report_fit(
+        fit_dir,
+        out_file,
+        title=title,
+        site=site,
+        notes=notes,
+        overwrite=overwrite,
+        criteria=criteria,
+        compare=compare,
+        calibration=calibration,
+    )
     out.print(f"report written to {path}")
 
 

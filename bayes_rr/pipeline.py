@@ -157,13 +157,15 @@ def report_fit(
     overwrite: bool = False,
     criteria: str | Path | None = None,
     compare: list[str | Path] | None = None,
+    calibration: str | Path | None = None,
 ) -> Path:
     """Write the HTML report of a fit (running the checks first when they are missing).
 
     The report file must end in .html; an existing file is replaced only when the
     toolkit wrote it, or with ``overwrite``; a file of the fit folder never.
     ``compare``: other fit folders of the same data, compared with this one by
-    PSIS-LOO in the report.
+    PSIS-LOO in the report. ``calibration``: a ``bayes-rr calibrate`` folder whose
+    results go into the report as evidence that the intervals are calibrated.
     """
     from bayes_rr.report import ReportInputs, render_report
 
@@ -182,6 +184,7 @@ def report_fit(
         wanted = load_criteria(criteria)
         check_keys(wanted)
     comparison = compare_folders([folder, *compare]) if compare else None
+    calibration_document = _read_calibration(calibration) if calibration else None
     fit = load_fit(folder)
     summary = fit.summary
     if wanted and summary["diagnostics"]["ok"]:
@@ -208,12 +211,33 @@ def report_fit(
                 notes=notes,
                 folder=str(folder),
                 comparison=comparison,
+                calibration=calibration_document,
             )
             html = render_report(inputs)
         except MALFORMED as exc:
             raise _malformed(folder, exc) from None
     write_text_atomic(target, html)
     return target
+
+
+def _read_calibration(folder: str | Path) -> dict:
+    """The calibration.json of a calibration run folder (refused when missing or not one)."""
+    import json
+
+    from bayes_rr.simulation.calibrate import CALIBRATION_FILE
+
+    path = Path(folder) / CALIBRATION_FILE
+    try:
+        document = json.loads(path.read_text(encoding="utf-8"))
+        missing = {"parameters", "design", "verdict"} - set(document)
+        if missing:
+            raise KeyError(sorted(missing))
+    except (OSError, ValueError, KeyError, TypeError):
+        raise OutputError(
+            f"--calibration {folder}: no readable {CALIBRATION_FILE} there; give the --out "
+            "folder of a finished 'bayes-rr calibrate' run"
+        ) from None
+    return document
 
 
 def compare_folders(

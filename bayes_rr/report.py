@@ -77,6 +77,8 @@ class ReportInputs:
     folder: str = ""
     comparison: dict | None = None
     """A PSIS-LOO comparison of this fit with others of the same data (checks.compare_fits)."""
+    calibration: dict | None = None
+    """A calibration run's calibration.json (bayes_rr.simulation.calibrate), as evidence."""
 
 
 def esc(value: object) -> str:
@@ -413,6 +415,47 @@ def _model_section(inputs: ReportInputs) -> str:
             )
         )
     return "".join(parts)
+
+
+def _calibration_section(inputs: ReportInputs) -> str:
+    """A simulation-based calibration run shown as evidence, with how its design and
+    model relate to this fit's."""
+    found = inputs.calibration
+    design = found["design"]
+    fitted = inputs.summary["design"]
+    same_model = found.get("spec_name") == inputs.run.get("spec_name")
+    same_design = (design["parts"], design["appraisers"]) == (
+        fitted.get("parts"), fitted.get("appraisers"))  # fmt: skip
+    relation = (
+        "It was run with this fit's model and number of parts and appraisers."
+        if same_model and same_design
+        else "Its model or design differs from this fit's: it is evidence for that model "
+        "and design, and only indirectly for this fit."
+    )
+    rows = [
+        [esc(r["name"]), f"{r['rank_uniformity_p']:.3f}", f"{r['coverage_50']:.0%}",
+         f"{r['coverage_90']:.0%}", "yes" if r["ecdf_within_band"] else "no", str(r["sims"])]
+        for r in found["parameters"]
+    ]  # fmt: skip
+    return (
+        f"<p>{esc(found['verdict'])}</p>"
+        f"<p class='note'>Calibration of the model {esc(found.get('spec_name'))} on "
+        f"{design['parts']} parts x {design['appraisers']} appraisers x {design['trials']} "
+        f"trials, {found['sims']} studies simulated from the prior (seed {found['seed']}). "
+        f"{relation} {esc(found.get('method', ''))}</p>"
+        + _table(
+            [
+                "quantity",
+                "rank uniformity p",
+                "50% interval coverage",
+                "90% interval coverage",
+                "rank ECDF inside its band",
+                "studies",
+            ],
+            rows,
+            {1, 2, 3, 5},
+        )
+    )
 
 
 def _comparison_section(inputs: ReportInputs) -> str:
@@ -785,6 +828,11 @@ def render_report(inputs: ReportInputs) -> str:
             ("", "Does the model fit the data?", _checks_section(inputs)),
             ("", "How much the prior matters", _prior_section(inputs)),
             *([("", "Models compared", _comparison_section(inputs))] if inputs.comparison else []),
+            *(
+                [("", "Are the intervals calibrated?", _calibration_section(inputs))]
+                if inputs.calibration
+                else []
+            ),
         ]
     per_part = figure_tag(inputs.figures.get("per_part"), "per-part variances with intervals")
     sections += [
