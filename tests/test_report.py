@@ -299,3 +299,59 @@ def test_check_prints_the_prior_predictive_check_and_report_compares_models(fit_
     page = out.read_text()
     assert "Models compared" in page
     assert "crossed-logit" in page and "beta-binomial" in page and "stacking weight" in page
+
+
+def test_report_includes_a_calibration_run_as_evidence(fit_dirs, tmp_path):
+    """A calibration folder's results (here from ranks drawn uniform, summarised by the
+    calibration module itself) appear in the report with its design; a folder without
+    calibration.json is refused in one line."""
+    from bayes_rr.simulation.calibrate import summarise, verdict
+
+    rng = np.random.default_rng(3)
+    results = [
+        {"quantities": {"sigma_part": {"rank": float(rng.random()), "in_50": True, "in_90": True}}}
+        for _ in range(30)
+    ]
+    rows = summarise(results)
+    calibration = tmp_path / "calib"
+    calibration.mkdir()
+    document = {
+        "generator": "bayes-rr test",
+        "spec_name": "crossed-logit",
+        "seed": 1,
+        "design": {"parts": 20, "appraisers": 3, "trials": 2, "part_mix": None},
+        "sims": 30,
+        "parameters": rows,
+        "verdict": verdict(rows, 30),
+        "method": "SBC",
+    }
+    (calibration / "calibration.json").write_text(json.dumps(document))
+    out = tmp_path / "r.html"
+    result = runner.invoke(
+        app,
+        [
+            "report",
+            str(fit_dirs["crossed-logit"]),
+            "--out",
+            str(out),
+            "--calibration",
+            str(calibration),
+        ],
+    )
+    assert result.exit_code == 0, result.output
+    html = out.read_text()
+    assert "Are the intervals calibrated?" in html and "sigma_part" in html
+    assert "20 parts x 3 appraisers x 2 trials" in html
+    bad = runner.invoke(
+        app,
+        [
+            "report",
+            str(fit_dirs["crossed-logit"]),
+            "--out",
+            str(tmp_path / "s.html"),
+            "--calibration",
+            str(tmp_path),
+        ],
+    )
+    assert bad.exit_code == 2 and "calibration.json" in bad.stderr
+    assert not (tmp_path / "s.html").exists()

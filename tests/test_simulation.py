@@ -240,3 +240,105 @@ def test_batch_reports_a_malformed_file_and_fits_the_rest(client, tmp_path):
     assert "st3.csv" in html and "maybe" in html
     assert (tmp_path / "out" / "fits" / "st1" / "summary.json").is_file()
     assert (folder / "readme.txt").read_text() == "not a study"
+
+
+# ---------------------------------------------------------------------------
+# the commands: bad input is refused before any work
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["plan", "--parts", "20,x"], "'x' is not a whole number"),
+        (["plan", "--model", "latent-class"], "can be simulated for the families"),
+        (["plan", "--target-assurance", "0.8"], "--target-assurance needs --criteria"),
+        (["plan", "--target-key", "nonsense", "--target-width", "0.1"], "--target-key"),
+        (["plan", "--sims", "1"], "--sims 1"),
+        (["calibrate", "--model", "crossed-logit", "--part-mix", "0.3"], "--part-mix"),
+        (["calibrate", "--sims", "5"], "--sims 5"),
+        (["plan", "--scheduler", "tcp://127.0.0.1:9", "--sims", "2", "--parts", "5"],
+         "no Dask scheduler answered"),
+    ],
+)  # fmt: skip
+def test_commands_refuse_bad_input_in_one_line(tmp_path, args, message):
+    from typer.testing import CliRunner
+
+    from bayes_rr.cli import app
+
+    out = tmp_path / "run"
+    result = CliRunner().invoke(app, [*args, "--out", str(out), "--quiet"])
+    assert result.exit_code == 2, result.output
+    assert message in " ".join(result.output.split())
+    assert "Traceback" not in result.output
+    if "--scheduler" not in args:
+        assert not out.exists()  # refused before anything was written
+
+
+def test_batch_without_study_files_is_refused(tmp_path):
+    from typer.testing import CliRunner
+
+    from bayes_rr.cli import app
+
+    (tmp_path / "notes.txt").write_text("x")
+    result = CliRunner().invoke(app, ["batch", str(tmp_path), "--out", str(tmp_path / "o")])
+    assert result.exit_code == 2 and "no study files" in result.output
+    assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.slow
+def test_near_zero_reproducibility_prior_gives_near_zero_widths(client, tmp_path):
+    """With appraiser and interaction scales held near 0 by their priors, appraisers
+    cannot differ: the reproducibility variance's interval is near 0 wide, far
+    narrower than under the bundled prior."""
+    from bayes_rr.simulation.plan import PlanRequest, run_plan
+
+    spec = load_spec("crossed-logit")
+    text = spec.text
+    for term, sigma in (("appraiser", "1.0"), ("interaction", "0.5")):
+        old = f'[terms.{term}]\nscale_prior = {{ distribution = "half_normal", sigma = {sigma} }}'
+        assert old in text
+        text = text.replace(old, old.replace(f"sigma = {sigma}", "sigma = 0.005"))
+    tight = parse_spec(text, "tight.toml")
+    key = "study__study__reproducibility_variance"
+    widths = {}
+    for name, model in (("bundled", spec), ("tight", tight)):
+        request = PlanRequest(model, (Design(20, 3, 2),), 4, 2)
+        document = run_plan(request, tmp_path / name, client=client, progress=False)
+        widths[name] = document["designs"][0]["expected_width"][key]
+    assert widths["tight"] < 1e-3
+    assert widths["bundled"] > 10 * widths["tight"]
+
+
+@pytest.mark.slow
+def test_a_killed_plan_resumes_where_it_stopped(tmp_path):
+    """Ctrl-C during a run keeps the results written so far (exit 130, with how to go
+    on); the same command then runs only the rest."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    out = tmp_path / "run"
+    command = [sys.executable, "-m", "bayes_rr.cli", "plan", "--model", "beta-binomial",
+               "--parts", "8", "--trials", "2", "--sims", "12", "--workers", "1", "--seed", "4",
+               "--out", str(out), "--quiet"]  # fmt: skip
+    env = {**os.environ, "COLUMNS": "100"}
+    process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                               text=True, env=env)  # fmt: skip
+    deadline = time.monotonic() + 300
+    while time.monotonic() < deadline and process.poll() is None:
+        if len(list((out / "tasks").glob("*.json"))) >= 3:
+            break
+        time.sleep(0.2)
+    process.send_signal(signal.SIGINT)
+    _, stderr = process.communicate(timeout=120)
+    assert process.returncode == 130, stderr
+    assert "run the same command again" in stderr
+    kept = len(list((out / "tasks").glob("d00-s*.json")))
+    assert 3 <= kept < 12
+    again = subprocess.run(command, capture_output=True, text=True, env=env, timeout=600)
+    assert again.returncode == 0, again.stderr
+    document = json.loads((out / "plan.json").read_text())
+    assert document["resumed_tasks"] == kept
+    assert document["designs"][0]["sims"] == 12

@@ -57,7 +57,7 @@ def make_client(workers: int | None = None, scheduler: str | None = None):
 
     if scheduler:
         try:
-            return Client(scheduler, timeout="20s")
+            return Client(scheduler, timeout="10s")
         except OSError as exc:
             raise OutputError(
                 f"--scheduler {scheduler!r}: no Dask scheduler answered ({exc}); give the "
