@@ -1205,10 +1205,6 @@ def main() -> None:
         sys.exit(interrupts.INTERRUPT_EXIT_CODE)
 
 
-if __name__ == "__main__":
-    main()
-
-
 # ---------------------------------------------------------------------------
 # many fits on Dask: plan, calibrate, batch
 
@@ -1462,3 +1458,7 @@ def batch(
     )
     if document["failures"]:
         raise typer.Exit(1)
+
+
+if __name__ == "__main__":
+    main()

@@ -293,12 +293,13 @@ def test_near_zero_reproducibility_prior_gives_near_zero_widths(client, tmp_path
     from bayes_rr.simulation.plan import PlanRequest, run_plan
 
     spec = load_spec("crossed-logit")
-    text = spec.text
-    for term, sigma in (("appraiser", "1.0"), ("interaction", "0.5")):
-        old = f'[terms.{term}]\nscale_prior = {{ distribution = "half_normal", sigma = {sigma} }}'
-        assert old in text
-        text = text.replace(old, old.replace(f"sigma = {sigma}", "sigma = 0.005"))
-    tight = parse_spec(text, "tight.toml")
+    lines = spec.text.splitlines()
+    for term in ("appraiser", "interaction"):
+        start = lines.index(f"[terms.{term}]")
+        at = next(k for k in range(start, len(lines)) if lines[k].startswith("scale_prior"))
+        lines[at] = 'scale_prior = { distribution = "half_normal", sigma = 0.005 }'
+    tight = parse_spec("\n".join(lines), "tight.toml")
+    assert tight.term("appraiser").prior.kwargs["sigma"] == 0.005
     key = "study__study__reproducibility_variance"
     widths = {}
     for name, model in (("bundled", spec), ("tight", tight)):
