@@ -39,7 +39,7 @@ def simuk_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
     seconds = time.perf_counter() - start
     out = {}
     for name in ("intercept", "sigma_part", "rho"):
-        ranks = np.asarray(sbc.simulations[name]).ravel()
+        ranks = np.asarray(sbc.simulations["prior_sbc"][name]).ravel()
         out[name] = (ranks + np.random.default_rng(seed).random(ranks.size)) / 1001
     return out, seconds
 
