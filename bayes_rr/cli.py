@@ -1228,7 +1228,10 @@ Scheduler = Annotated[
 RunOut = Annotated[
     Path, typer.Option("--out", help="Folder for the run (new, or this run's own to resume).")
 ]
-Seed = Annotated[int, Col("--seed", min=0, max=2**32 - 1, help="Seed of the whole run.")]
+Seed = Annotated[
+    int,
+    Col("--seed", min=0, max=2**32 - 1, help="Seed of the whole run (same seed, same results)."),
+]
 
 
 def _resumable(out_dir: Path, run):
@@ -1259,16 +1262,26 @@ def _print_failures(failures: list[dict]) -> None:
 @handles_errors
 def plan(
     out_dir: RunOut,
-    model: Annotated[str, Col("--model", help="Bundled model name or a spec file.")] = (
-        "crossed-logit"
-    ),
-    parts: Annotated[str, Col("--parts", help="Parts to try, e.g. 20,40,60.")] = "20,40",
-    appraisers: Annotated[str, Col("--appraisers", help="Appraisers to try, e.g. 2,3.")] = "3",
-    trials: Annotated[str, Col("--trials", help="Trials to try, e.g. 2,3.")] = "2",
+    model: Annotated[
+        str, Col("--model", help="Bundled model name or a spec file (default crossed-logit).")
+    ] = ("crossed-logit"),
+    parts: Annotated[
+        str, Col("--parts", help="Parts to try, e.g. 20,40,60 (default 20,40).")
+    ] = "20,40",
+    appraisers: Annotated[
+        str, Col("--appraisers", help="Appraisers to try, e.g. 2,3 (default 3).")
+    ] = "3",
+    trials: Annotated[str, Col("--trials", help="Trials to try, e.g. 2,3 (default 2).")] = "2",
     part_mix: Annotated[
-        float | None, Col("--part-mix", help="Share of parts of a kind: see README (planning).")
+        float | None,
+        Col(
+            "--part-mix",
+            help="reference-logit: share of parts whose status is reject (default 0.5); other "
+            "models: share of borderline parts, rejected 10-90% of the time (default: as the "
+            "prior gives them).",
+        ),
     ] = None,
-    sims: Annotated[int, Col("--sims", help="Simulated studies per design.")] = 50,
+    sims: Annotated[int, Col("--sims", help="Simulated studies per design (default 50).")] = 50,
     seed: Seed = 1,
     prior_from: Annotated[
         Path | None,
@@ -1355,6 +1368,10 @@ def plan(
         table.add_row("assurance", *["-" if r["assurance"] is None else f"{r['assurance']:.0%}"
                                      for r in designs])  # fmt: skip
     table.add_row("fits ok", *[f"{r['fits_converged']}/{r['sims']}" for r in designs])
+    reached = [r["borderline_share_reached"] for r in designs]
+    if part_mix is not None and any(share is not None for share in reached):
+        table.add_row("borderline share reached",
+                      *["-" if s is None else f"{s:.0%}" for s in reached])  # fmt: skip
     out.print(table)
     out.print(document["recommendation"])
     _print_failures(document["failures"])

@@ -68,6 +68,8 @@ def ecdf_difference_figure(ranks: dict[str, np.ndarray], prob: float = 0.95) -> 
     import matplotlib.pyplot as plt
     from arviz.stats.ecdf_utils import ecdf_confidence_band
 
+    from bayes_rr.simulation.plan import result_label
+
     names = list(ranks)
     cols = min(4, max(1, len(names)))
     nrows = max(1, -(-len(names) // cols))
@@ -81,7 +83,7 @@ def ecdf_difference_figure(ranks: dict[str, np.ndarray], prob: float = 0.95) -> 
         ax.fill_between(grid, low - grid, high - grid, color="0.85", label=f"{prob:.0%} band")
         ax.plot(grid, ecdf - grid, color="C0")
         ax.axhline(0, color="0.4", lw=0.8)
-        ax.set_title(name, fontsize=8)
+        ax.set_title(result_label(name) if "__" in name else name, fontsize=8)
         ax.set_xlabel("fractional rank", fontsize=8)
     for ax in axes.ravel()[len(names) :]:
         ax.set_visible(False)
