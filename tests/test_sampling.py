@@ -130,3 +130,27 @@ def test_compiled_model_takes_new_calls_without_compiling():
         )
     other_design = simulate_beta_binomial(13, 3, 2, seed=2).study
     assert design_key(spec, other_design) != design_key(spec, second)
+
+
+def test_beta_binomial_likelihood_is_scipy_betabinom():
+    """The beta-binomial model's likelihood (sums of logarithms, no log-gamma of the
+    parameters) equals scipy.stats.betabinom.logpmf, and its draws have betabinom's
+    mean and variance."""
+    import pytensor.tensor as pt
+
+    from bayes_rr.families.beta_binomial import beta_binomial_logp, beta_binomial_random
+
+    rng = np.random.default_rng(0)
+    n = rng.integers(1, 12, 200)
+    s = rng.integers(0, n + 1)
+    a, b = rng.gamma(2.0, 2.0, 200), rng.gamma(0.3, 2.0, 200)
+    ours = beta_binomial_logp(pt.as_tensor(s), pt.as_tensor(a), pt.as_tensor(b), n,
+                              longest=int(n.max())).eval()  # fmt: skip
+    np.testing.assert_allclose(ours, stats.betabinom.logpmf(s, n, a, b), rtol=1e-12, atol=1e-12)
+    outside = beta_binomial_logp(pt.as_tensor(np.array([4])), pt.as_tensor(1.0),
+                                 pt.as_tensor(1.0), np.array([3]), longest=3).eval()  # fmt: skip
+    assert outside[0] == -np.inf
+    draws = beta_binomial_random(2.0, 3.0, 6, rng=rng, size=200_000)
+    reference = stats.betabinom(6, 2.0, 3.0)
+    assert draws.mean() == pytest.approx(reference.mean(), abs=0.01)
+    assert draws.var() == pytest.approx(reference.var(), rel=0.02)
