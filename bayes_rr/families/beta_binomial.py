@@ -71,7 +71,7 @@ def beta_binomial_logp(value, alpha, beta, n, *, longest: int):
     alpha, beta = pt.as_tensor(alpha), pt.as_tensor(beta)
     alpha = pt.broadcast_to(alpha, value.shape)
     beta = pt.broadcast_to(beta, value.shape)
-    log_choose = (pt.gammaln(n + 1) - pt.gammaln(value + 1) - pt.gammaln(n - value + 1))
+    log_choose = pt.gammaln(n + 1) - pt.gammaln(value + 1) - pt.gammaln(n - value + 1)
     rising = (
         pt.switch(below(value), pt.log(alpha[:, None] + k), 0.0).sum(axis=1)
         + pt.switch(below(n - value), pt.log(beta[:, None] + k), 0.0).sum(axis=1)
