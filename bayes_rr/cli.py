@@ -1234,10 +1234,11 @@ Seed = Annotated[
 ]
 
 
-def _resumable(out_dir: Path, run):
-    """Run; an interrupt keeps the results written so far and says how to go on."""
+def _resumable(out_dir: Path, run, request, *, workers, scheduler, quiet: bool):
+    """``run(request, out_dir, ...)`` on Dask; an interrupt keeps the results written so
+    far and says how to go on."""
     try:
-        return run()
+        return run(request, out_dir, workers=workers, scheduler=scheduler, progress=not quiet)
     except KeyboardInterrupt:
         from bayes_rr.simulation.runner import TASKS_DIR
 
@@ -1344,10 +1345,7 @@ def plan(
         draws=draws,
     )
     document = _resumable(
-        out_dir,
-        lambda: run_plan(
-            request, out_dir, workers=workers, scheduler=scheduler, progress=not quiet
-        ),
+        out_dir, run_plan, request, workers=workers, scheduler=scheduler, quiet=quiet
     )
     table = Table(
         title=f"Expected {request.prob:.0%} interval widths (median over the "
@@ -1408,10 +1406,7 @@ def calibrate(
         load_spec(model), Design(parts, appraisers, trials, part_mix), sims, seed, draws=draws
     )
     document = _resumable(
-        out_dir,
-        lambda: run_calibration(
-            request, out_dir, workers=workers, scheduler=scheduler, progress=not quiet
-        ),
+        out_dir, run_calibration, request, workers=workers, scheduler=scheduler, quiet=quiet
     )
     table = Table(
         title=f"Calibration of {document['spec_name']} on {parts} parts x "
@@ -1458,10 +1453,7 @@ def batch(
 
     request = BatchRequest(find_study_files(studies), model, seed, draws)
     document = _resumable(
-        out_dir,
-        lambda: run_batch(
-            request, out_dir, workers=workers, scheduler=scheduler, progress=not quiet
-        ),
+        out_dir, run_batch, request, workers=workers, scheduler=scheduler, quiet=quiet
     )
     converged = sum(1 for r in document["rows"] if r["converged"])
     out.print(
