@@ -156,12 +156,15 @@ def ess_bulk(x: np.ndarray) -> np.ndarray:
     return _ess(_z_scale(_split(np.asarray(x, dtype=float))))
 
 
+TAIL_PROBS = (0.05, 0.95)
+
+
 def ess_tail(x: np.ndarray) -> np.ndarray:
     """Tail ESS: the smaller ESS of the 5% and 95% quantile indicators (split chains)."""
     x = np.asarray(x, dtype=float)
     flat = x.reshape(-1, x.shape[2])
     out = None
-    for prob in (0.05, 0.95):
+    for prob in TAIL_PROBS:
         q = np.quantile(flat, prob, axis=0)
         ess = _ess(_split((x <= q).astype(float)))
         out = ess if out is None else np.minimum(out, ess)
@@ -180,12 +183,59 @@ def hdi(x: np.ndarray, prob: float) -> tuple[np.ndarray, np.ndarray]:
     return flat[start, columns], flat[start + inside, columns]
 
 
-def diagnose(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(r_hat, ess_bulk, ess_tail) of each quantity, ranking the split chains once for both
-    bulk diagnostics."""
-    x = np.asarray(x, dtype=float)
+def _diagnose_by_sorting_twice(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     split = _split(x)
     z = _z_scale(split)
     folded = np.abs(split - np.median(split.reshape(-1, split.shape[2]), axis=0))
     r_hat = np.maximum(_basic_rhat(z), _basic_rhat(_z_scale(folded)))
     return r_hat, _ess(z), ess_tail(x)
+
+
+def describe_draws(x: np.ndarray, probs=()) -> dict[str, np.ndarray]:
+    """r_hat, bulk and tail ESS, median and quantiles at ``probs`` of each of K quantities.
+
+    One sort of each quantity's draws (and one of their distances from the median)
+    gives the ranks of both r_hat terms, the median, the tail-ESS quantiles and the
+    asked quantiles (numpy's default rule), in compiled loops over all cores; the
+    result equals :func:`rhat`, :func:`ess_bulk`, :func:`ess_tail`, ``np.median`` and
+    ``np.quantile`` (tests). With an odd number of draws the split chains leave out
+    each chain's middle draw, so their ranks are not those of all draws: that case
+    sorts twice.
+    """
+    from bayes_rr.kernels import rank_scores
+
+    x = np.asarray(x, dtype=float)
+    m, n, k = x.shape
+    probs = np.asarray(probs, dtype=float).reshape(-1)
+    if n % 2 == 1 or n < 4:
+        flat = x.reshape(-1, k)
+        r_hat, bulk, tail = _diagnose_by_sorting_twice(x)
+        return {
+            "r_hat": r_hat,
+            "ess_bulk": bulk,
+            "ess_tail": tail,
+            "median": np.median(flat, axis=0),
+            "quantiles": np.quantile(flat, probs, axis=0).reshape(probs.size, k),
+        }
+    rows = np.ascontiguousarray(np.moveaxis(x, 2, 0).reshape(k, m * n))
+    scores, folded, median, quantiles = rank_scores(rows, np.r_[TAIL_PROBS, probs])
+    z = _split(np.moveaxis(scores.reshape(k, m, n), 0, 2))
+    z_folded = _split(np.moveaxis(folded.reshape(k, m, n), 0, 2))
+    split = _split(x)
+    indicators = np.concatenate(
+        [split <= quantiles[:, 0], split <= quantiles[:, 1]], axis=2
+    ).astype(float)
+    tail = _ess(indicators)
+    return {
+        "r_hat": np.maximum(_basic_rhat(z), _basic_rhat(z_folded)),
+        "ess_bulk": _ess(z),
+        "ess_tail": np.minimum(tail[:k], tail[k:]),
+        "median": median,
+        "quantiles": quantiles[:, len(TAIL_PROBS) :].T,
+    }
+
+
+def diagnose(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(r_hat, ess_bulk, ess_tail) of each quantity (see :func:`describe_draws`)."""
+    described = describe_draws(x)
+    return described["r_hat"], described["ess_bulk"], described["ess_tail"]

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cache
 
 import numpy as np
 import xarray as xr
@@ -125,10 +126,17 @@ def beta_draws(
     return np.exp(log_g1 - total), np.exp(log_g2 - total)
 
 
+@cache
 def gauss_hermite(nodes: int) -> tuple[np.ndarray, np.ndarray]:
-    """Gauss-Hermite rule for the standard normal: E[f(Z)] ~ sum_k w_k f(u_k)."""
+    """Gauss-Hermite rule for the standard normal: E[f(Z)] ~ sum_k w_k f(u_k).
+
+    Kept per node count (an eigenvalue problem each time otherwise); read-only.
+    """
     x, w = np.polynomial.hermite.hermgauss(nodes)
-    return math.sqrt(2.0) * x, w / math.sqrt(math.pi)
+    u, weights = math.sqrt(2.0) * x, w / math.sqrt(math.pi)
+    u.flags.writeable = False
+    weights.flags.writeable = False
+    return u, weights
 
 
 def _gh_rule(scale_max: float) -> tuple[np.ndarray, np.ndarray] | None:
@@ -731,18 +739,22 @@ def summarize(
         fill[partial] = np.nanmedian(x[:, :, partial].reshape(-1, int(partial.sum())), axis=0)
         x = np.where(missing, fill, x)
     flat = x.reshape(-1, x.shape[2])
+    eti_probs = [(1 - prob) / 2, (1 + prob) / 2]
+    described = diagnostics.describe_draws(x, eti_probs if interval == "eti" else ())
     if interval == "hdi":
         lower, upper = diagnostics.hdi(x, prob)
     else:
-        lower, upper = np.quantile(flat, [(1 - prob) / 2, (1 + prob) / 2], axis=0)
+        lower, upper = described["quantiles"]
     stats_ = {
         "mean": flat.mean(axis=0),
-        "median": np.median(flat, axis=0),
+        "median": described["median"],
         "sd": flat.std(axis=0, ddof=1),
         "lower": lower,
         "upper": upper,
+        "r_hat": described["r_hat"],
+        "ess_bulk": described["ess_bulk"],
+        "ess_tail": described["ess_tail"],
     }
-    stats_["r_hat"], stats_["ess_bulk"], stats_["ess_tail"] = diagnostics.diagnose(x)
     rows = []
     for k, (name, where) in enumerate(labels):
         if level == "parameter":

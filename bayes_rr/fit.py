@@ -169,9 +169,11 @@ def fit_study(
     stages = [settings]
     if two_stage and settings.draws > FIRST_STAGE_DRAWS:
         stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
+    compile_source = "reused in this process" if reused else None
     for number, stage in enumerate(stages, 1):
         run = sample_model(model, stage, compiled)
         compiled = run.compiled
+        compile_source = compile_source or run.compile_source
         if not reused and stage.sampler == "nutpie":
             remember_compiled(key, compiled)
         for key, value in run.timings.items():
@@ -215,6 +217,7 @@ def fit_study(
         "seed": settings.seed,
         "sampler_settings": settings.as_dict(),
         "compiled_model_reused": reused,
+        "compiled_model_source": compile_source,
         "stages": [{"draws": stage.draws, "chains": stage.chains} for stage in stages[:number]],
         "timings": timings,
         "versions": package_versions(),

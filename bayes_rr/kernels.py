@@ -36,7 +36,11 @@ def _compiled():
     # numba and the compiled loops load on first use only
     from bayes_rr import _numba_loops
 
-    return _jit(_numba_loops.nested_moments), _jit(_numba_loops.log_integrated_binomial)
+    return (
+        _jit(_numba_loops.nested_moments),
+        _jit(_numba_loops.log_integrated_binomial),
+        _jit(_numba_loops.rank_scores),
+    )
 
 
 def _f64(x) -> np.ndarray:
@@ -83,3 +87,25 @@ def log_integrated_binomial(
     """
     kernel = _compiled()[1]
     return kernel(_f64(eta), _f64(scale), _f64(n), _f64(k), _f64(nodes), _f64(log_weights))
+
+
+def rank_scores(
+    rows: np.ndarray, probs: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Normal scores of the average ranks of each row and of its distances from its
+    median, the median and the quantiles at ``probs``, from one sort of each row.
+
+    ``rows`` (K, N). The scores are ``ndtri((r - 3/8) / (N + 1/4))`` for average rank r
+    (Blom's rule, as in the rank-normalised r_hat); average ranks are multiples of 1/2,
+    so the 2N + 1 possible scores are computed once. Quantiles follow numpy's default
+    linear rule; the median is numpy's.
+    """
+    from scipy.special import ndtri
+
+    rows = _f64(rows)
+    size = rows.shape[1]
+    doubled = np.arange(2 * size + 1) / 2.0
+    table = ndtri((doubled - 3 / 8) / (size - 2 * 3 / 8 + 1))
+    order = np.argsort(rows, axis=1)
+    kernel = _compiled()[2]
+    return kernel(rows, order, table, _f64(np.atleast_1d(probs)))

@@ -125,6 +125,9 @@ class SampleRun:
     timings: dict = field(default_factory=dict)
     compiled: object = None
     """nutpie's compiled model, for another run of the same model without compiling."""
+    compile_source: str | None = None
+    """How the compiled model was obtained (:class:`bayes_rr.compile_cache.CompileOutcome`);
+    None when it was given or the sampler compiles itself."""
 
 
 def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
@@ -139,12 +142,16 @@ def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
     from bayes_rr import interrupts
 
     timings = {}
+    compile_source = None
     start = time.perf_counter()
     if settings.sampler == "nutpie":
         import nutpie
 
         if compiled is None:
-            compiled = nutpie.compile_pymc_model(model)
+            from bayes_rr.compile_cache import compile_model
+
+            outcome = compile_model(model)
+            compiled, compile_source = outcome.compiled, outcome.source
         timings["compile_s"] = time.perf_counter() - start
         interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
         start = time.perf_counter()
@@ -180,7 +187,7 @@ def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
             f"the sampler returned {got[0]} chains x {got[1]} draws instead of "
             f"{settings.chains} x {settings.draws}; nothing was written; run the fit again"
         )
-    return SampleRun(idata, timings, compiled)
+    return SampleRun(idata, timings, compiled, compile_source)
 
 
 # ---------------------------------------------------------------------------

@@ -1,8 +1,17 @@
 """Shared fixtures. Matplotlib draws off-screen; sampled fits are cached per session."""
 
+import atexit
 import os
+import shutil
+import tempfile
 
 os.environ.setdefault("MPLBACKEND", "Agg")
+# Compiled models go to a cache of this test run (child processes inherit it), never to
+# the user's own cache folder.
+if "BAYES_RR_CACHE_DIR" not in os.environ:
+    _CACHE = tempfile.mkdtemp(prefix="bayes-rr-test-cache-")
+    os.environ["BAYES_RR_CACHE_DIR"] = _CACHE
+    atexit.register(shutil.rmtree, _CACHE, ignore_errors=True)
 
 from pathlib import Path
 

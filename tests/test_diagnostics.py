@@ -61,3 +61,42 @@ def test_diagnose_equals_the_separate_functions(chains):
     np.testing.assert_array_equal(r, rhat(chains))
     np.testing.assert_array_equal(b, ess_bulk(chains))
     np.testing.assert_array_equal(t, ess_tail(chains))
+
+
+def test_one_sort_gives_numpys_median_and_quantiles(chains):
+    # Reference: numpy.median and numpy.quantile (default linear rule), for an even and
+    # an odd number of draws (the odd one takes the two-sort path).
+    from bayes_rr.diagnostics import describe_draws
+
+    probs = [0.025, 0.05, 0.5, 0.975]
+    for draws in (chains, chains[:, :399]):
+        flat = draws.reshape(-1, draws.shape[2])
+        described = describe_draws(draws, probs)
+        np.testing.assert_array_equal(described["median"], np.median(flat, axis=0))
+        np.testing.assert_array_equal(described["quantiles"], np.quantile(flat, probs, axis=0))
+        r, b, t = rhat(draws), ess_bulk(draws), ess_tail(draws)
+        np.testing.assert_array_equal(described["r_hat"], r)
+        np.testing.assert_array_equal(described["ess_bulk"], b)
+        np.testing.assert_array_equal(described["ess_tail"], t)
+
+
+def test_rank_scores_are_normal_scores_of_scipy_ranks():
+    # Reference: scipy.special.ndtri of Blom's (r - 3/8) / (N + 1/4) with
+    # scipy.stats.rankdata's average ranks, of the draws and of |draws - median|.
+    from scipy.special import ndtri
+
+    from bayes_rr.kernels import rank_scores
+
+    rows = np.random.default_rng(4).normal(size=(5, 300))
+    rows[1] = np.round(rows[1], 1)
+    rows[2] = 2.0
+    rows[3, :150] = rows[3, 150:]  # every value twice
+    size = rows.shape[1]
+    scores, folded, median, _ = rank_scores(rows, np.array([0.5]))
+    for c, row in enumerate(rows):
+        blom = ndtri((stats.rankdata(row) - 3 / 8) / (size + 1 / 4))
+        np.testing.assert_array_equal(scores[c], blom)
+        distance = np.abs(row - np.median(row))
+        blom = ndtri((stats.rankdata(distance) - 3 / 8) / (size + 1 / 4))
+        np.testing.assert_array_equal(folded[c], blom)
+    np.testing.assert_array_equal(median, np.median(rows, axis=1))

@@ -190,8 +190,7 @@ def test_cli_fit_success_prints_table_and_reading(tmp_path, small_sim):
 def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatch):
     """A first stage too short for the gate (4 x 50 draws cannot give an ESS of 400) is
     followed by the full run of the same compiled model; the provenance records both."""
-    import nutpie
-
+    from bayes_rr import compile_cache
     from bayes_rr import fit as fit_module
     from bayes_rr.fit import fit_study
     from bayes_rr.sampling import SamplerSettings, forget_compiled
@@ -199,8 +198,8 @@ def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatc
 
     forget_compiled()  # an earlier test may have compiled this design
     compiles = []
-    original = nutpie.compile_pymc_model
-    monkeypatch.setattr(nutpie, "compile_pymc_model",
+    original = compile_cache.compile_model
+    monkeypatch.setattr(compile_cache, "compile_model",
                         lambda model: compiles.append(1) or original(model))  # fmt: skip
     monkeypatch.setattr(fit_module, "FIRST_STAGE_DRAWS", 50)
     spec = load_spec("beta-binomial")
