@@ -56,6 +56,28 @@ SMALLEST_LINEAR_SUM = 1e-280
 cell is summed again on the log scale."""
 
 
+def logistic_moments(eta, scale, u, w):
+    # E[p] and E[p^2] for p = expit(eta + scale z), z ~ N(0, 1), by the rule (u, w), per
+    # (draw, element); as in nested_moments, no exp in the node loop.
+    draws, size = eta.shape
+    first = np.empty((draws, size))
+    second = np.empty((draws, size))
+    for s in numba.prange(draws):
+        e_node = np.exp(-scale[s] * u)
+        for i in range(size):
+            e_eta = np.exp(-eta[s, i])
+            m1 = 0.0
+            m2 = 0.0
+            for j in range(u.size):
+                p = 1.0 / (1.0 + e_eta * e_node[j])
+                wp = w[j] * p
+                m1 += wp
+                m2 += wp * p
+            first[s, i] = m1
+            second[s, i] = m2
+    return first, second
+
+
 def log_integrated_binomial(eta, scale, n, k, u, log_w):
     # log sum_l w_l p_l^k (1 - p_l)^(n - k), p_l = expit(x_l), x_l = eta + scale * u_l,
     # without the binomial coefficient. With t_l = exp(-x_l) = exp(-eta) exp(-scale u_l),
@@ -184,3 +206,97 @@ def rank_scores(rows, order, score_of_doubled_rank, probs):
                     out[positions[j]] = score
                 start = end
     return scores, folded_scores, medians, quantiles
+
+
+@numba.njit(inline="always")
+def _mean_autocovariance(centred, lag):
+    # mean over chains of the biased (divided by the draws) autocovariance at ``lag``
+    chains, draws = centred.shape
+    total = 0.0
+    for c in range(chains):
+        acc = 0.0
+        for i in range(draws - lag):
+            acc += centred[c, i] * centred[c, i + lag]
+        total += acc / draws
+    return total / chains
+
+
+def geyer_ess(columns, max_lag):
+    # Effective sample size of each column (K, chains, draws) by Geyer's initial positive
+    # and monotone sequences, as ArviZ's ``_ess``, with each lag's autocovariance summed
+    # directly when it is first needed: mixing chains stop after a few lags, far cheaper
+    # than a whole FFT. A column still going past ``max_lag`` is flagged for the FFT path.
+    count, chains, draws = columns.shape
+    ess = np.full(count, np.nan)
+    unfinished = np.zeros(count, dtype=np.bool_)
+    for q in numba.prange(count):
+        x = columns[q]
+        centred = np.empty((chains, draws))
+        chain_means = np.empty(chains)
+        for c in range(chains):
+            total = 0.0
+            for i in range(draws):
+                total += x[c, i]
+            chain_means[c] = total / draws
+            for i in range(draws):
+                centred[c, i] = x[c, i] - chain_means[c]
+        # mean over chains of the biased autocovariance at each lag, filled on demand
+        acov = np.empty(min(draws, max_lag + 3))
+        acov[0] = _mean_autocovariance(centred, 0)
+        acov[1] = _mean_autocovariance(centred, 1)
+        known = 2
+        mean_var = acov[0] * draws / (draws - 1.0)
+        var_plus = mean_var * (draws - 1.0) / draws
+        if chains > 1:
+            grand = 0.0
+            for c in range(chains):
+                grand += chain_means[c]
+            grand /= chains
+            spread = 0.0
+            for c in range(chains):
+                spread += (chain_means[c] - grand) ** 2
+            var_plus += spread / (chains - 1)
+        rho = np.zeros(draws)
+        rho_even = 1.0
+        rho[0] = rho_even
+        rho_odd = 1.0 - (mean_var - acov[1]) / var_plus
+        rho[1] = rho_odd
+        t = 1
+        stopped = False
+        while t < draws - 3 and (rho_even + rho_odd) > 0.0:
+            if t + 2 > max_lag:
+                stopped = True
+                break
+            while known <= t + 2:
+                acov[known] = _mean_autocovariance(centred, known)
+                known += 1
+            rho_even = 1.0 - (mean_var - acov[t + 1]) / var_plus
+            rho_odd = 1.0 - (mean_var - acov[t + 2]) / var_plus
+            if (rho_even + rho_odd) >= 0:
+                rho[t + 1] = rho_even
+                rho[t + 2] = rho_odd
+            t += 2
+        if stopped:
+            unfinished[q] = True
+            continue
+        max_t = t - 2
+        if rho_even > 0:
+            rho[max_t + 1] = rho_even
+        t = 1
+        while t <= max_t - 2:
+            if (rho[t + 1] + rho[t + 2]) > (rho[t - 1] + rho[t]):
+                rho[t + 1] = (rho[t - 1] + rho[t]) / 2.0
+                rho[t + 2] = rho[t + 1]
+            t += 2
+        total_draws = chains * draws
+        head = 0.0
+        for i in range(max_t + 1):
+            head += rho[i]
+        tail = rho[max_t + 1] if max_t + 1 < draws else 0.0
+        tau = max(-1.0 + 2.0 * head + tail, 1.0 / np.log10(total_draws))
+        has_nan = False
+        for i in range(draws):
+            if np.isnan(rho[i]):
+                has_nan = True
+        ess[q] = np.nan if has_nan else total_draws / tau
+    return ess, unfinished

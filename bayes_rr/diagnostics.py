@@ -68,11 +68,7 @@ def _z_scale(x: np.ndarray) -> np.ndarray:
 
 
 def _basic_rhat(x: np.ndarray) -> np.ndarray:
-    n = x.shape[1]
-    between = n * x.mean(axis=1).var(axis=0, ddof=1)
-    within = x.var(axis=1, ddof=1).mean(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):  # constant quantities: NaN
-        return np.sqrt((between / within + n - 1) / n)
+    return _basic_rhat_rows(np.moveaxis(x, 2, 0))
 
 
 def rhat(x: np.ndarray) -> np.ndarray:
@@ -96,8 +92,31 @@ def _autocov(x: np.ndarray) -> np.ndarray:
     return np.moveaxis(acov, -1, 1)
 
 
+DIRECT_LAGS = 64
+"""Lags summed directly before a quantity's ESS goes to the FFT path: a chain that mixes
+stops Geyer's sequence within a few lags; one that needs more is rare and slow anyway."""
+
+
 def _ess(x: np.ndarray) -> np.ndarray:
-    """ESS of (chain, draw, K) with Geyer's initial positive and monotone sequences."""
+    """ESS of (chain, draw, K) with Geyer's initial positive and monotone sequences.
+
+    Autocovariances are summed directly, lag by lag, while the sequence runs (compiled,
+    over all cores); quantities whose sequence runs past DIRECT_LAGS lags take the FFT
+    path (:func:`_ess_by_fft`). Both give ArviZ's ESS.
+    """
+    from bayes_rr.kernels import geyer_ess
+
+    x = np.asarray(x, dtype=float)
+    m, n = x.shape[:2]
+    ess, unfinished = geyer_ess(x, DIRECT_LAGS)
+    if unfinished.any():
+        ess[unfinished] = _ess_by_fft(x[:, :, unfinished])
+    constant = (x.max(axis=(0, 1)) - x.min(axis=(0, 1))) < np.finfo(float).resolution
+    return np.where(constant, float(m * n), ess)
+
+
+def _ess_by_fft(x: np.ndarray) -> np.ndarray:
+    """ESS of (chain, draw, K), all lags' autocovariances at once by FFT."""
     m, n, k = x.shape
     acov = _autocov(x)
     mean_acov = acov.mean(axis=0)  # (n, K)
@@ -217,22 +236,43 @@ def describe_draws(x: np.ndarray, probs=()) -> dict[str, np.ndarray]:
             "median": np.median(flat, axis=0),
             "quantiles": np.quantile(flat, probs, axis=0).reshape(probs.size, k),
         }
+    # One row a quantity, its chains one after another: a chain's two halves are then
+    # two consecutive blocks, so the split chains are a free reshape (their order does
+    # not matter to r_hat or ESS).
     rows = np.ascontiguousarray(np.moveaxis(x, 2, 0).reshape(k, m * n))
     scores, folded, median, quantiles = rank_scores(rows, np.r_[TAIL_PROBS, probs])
-    z = _split(np.moveaxis(scores.reshape(k, m, n), 0, 2))
-    z_folded = _split(np.moveaxis(folded.reshape(k, m, n), 0, 2))
-    split = _split(x)
-    indicators = np.concatenate(
-        [split <= quantiles[:, 0], split <= quantiles[:, 1]], axis=2
-    ).astype(float)
-    tail = _ess(indicators)
+    split_shape = (k, 2 * m, n // 2)
+    below = [rows <= quantiles[:, [j]] for j in range(len(TAIL_PROBS))]
+    tail = _ess_rows(np.concatenate(below).astype(float).reshape(2 * k, 2 * m, n // 2))
+    z = scores.reshape(split_shape)
     return {
-        "r_hat": np.maximum(_basic_rhat(z), _basic_rhat(z_folded)),
-        "ess_bulk": _ess(z),
+        "r_hat": np.maximum(_basic_rhat_rows(z), _basic_rhat_rows(folded.reshape(split_shape))),
+        "ess_bulk": _ess_rows(z),
         "ess_tail": np.minimum(tail[:k], tail[k:]),
         "median": median,
         "quantiles": quantiles[:, len(TAIL_PROBS) :].T,
     }
+
+
+def _basic_rhat_rows(z: np.ndarray) -> np.ndarray:
+    """:func:`_basic_rhat` of (K, chain, draw) arrays."""
+    n = z.shape[2]
+    between = n * z.mean(axis=2).var(axis=1, ddof=1)
+    within = z.var(axis=2, ddof=1).mean(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):  # constant quantities: NaN
+        return np.sqrt((between / within + n - 1) / n)
+
+
+def _ess_rows(rows: np.ndarray) -> np.ndarray:
+    """:func:`_ess` of (K, chain, draw) arrays, without moving axes."""
+    from bayes_rr.kernels import geyer_ess_rows
+
+    m, n = rows.shape[1:]
+    ess, unfinished = geyer_ess_rows(rows, DIRECT_LAGS)
+    if unfinished.any():
+        ess[unfinished] = _ess_by_fft(np.moveaxis(rows[unfinished], 0, 2))
+    constant = (rows.max(axis=(1, 2)) - rows.min(axis=(1, 2))) < np.finfo(float).resolution
+    return np.where(constant, float(m * n), ess)
 
 
 def diagnose(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -55,7 +55,6 @@ STUDY_KEYS = (
     "repeatability_share",
     "repeat_disagreement",
 )
-MAX_BLOCK = 4_000_000  # array elements per quadrature block (memory bound)
 
 # Gauss-Hermite nodes needed for an absolute error below 1e-6 in E[p] and E[p^2]
 # of p = expit(eta + z), z ~ N(0, s^2), for every eta in [-8, 8]: measured against
@@ -180,6 +179,8 @@ def logistic_normal_moments(eta: np.ndarray, scale: np.ndarray) -> tuple[np.ndar
     Draws are grouped by the quadrature rule their scale needs, so a few draws
     in the tail of a scale's posterior do not make every draw expensive.
     """
+    from bayes_rr.kernels import logistic_moments
+
     eta = np.asarray(eta, dtype=float)
     scale = np.broadcast_to(np.asarray(scale, dtype=float), eta.shape[:1])
     m1 = np.empty_like(eta)
@@ -187,14 +188,10 @@ def logistic_normal_moments(eta: np.ndarray, scale: np.ndarray) -> tuple[np.ndar
     rule_of_draw = _rule_index(scale)
     for index in np.unique(rule_of_draw):
         draws = np.flatnonzero(rule_of_draw == index)
-        u, w = _rule_for_index(int(index), float(scale[draws].max()))
-        block = max(1, MAX_BLOCK // max(1, eta[0].size * u.size))
-        for start in range(0, draws.size, block):
-            sel = draws[start : start + block]
-            z = scale[sel].reshape((-1,) + (1,) * eta.ndim) * u
-            p = expit(eta[sel][..., None] + z)
-            m1[sel] = p @ w
-            m2[sel] = (p * p) @ w
+        rule = _rule_for_index(int(index), float(scale[draws].max()))
+        first, second = logistic_moments(eta[draws].reshape(draws.size, -1), scale[draws], rule)
+        m1[draws] = first.reshape(eta[draws].shape)
+        m2[draws] = second.reshape(eta[draws].shape)
     return m1, m2
 
 
@@ -719,9 +716,11 @@ def summarize(
         extra = list(da.dims[2:])
         values = da.to_numpy().reshape(da.sizes["chain"], da.sizes["draw"], -1)
         columns.append(values)
+        # coordinate labels read once per variable (indexing xarray per row is slow)
+        names = [[str(v) for v in da[d].to_numpy()] for d in extra]
         for idx in np.ndindex(*[da.sizes[d] for d in extra]) if extra else [()]:
             labels.append(
-                (name, {d: str(da[d].to_numpy()[i]) for d, i in zip(extra, idx, strict=True)})
+                (name, {d: names[j][i] for j, (d, i) in enumerate(zip(extra, idx, strict=True))})
             )
     if not columns:
         return []

@@ -19,16 +19,24 @@ from functools import cache
 
 import numpy as np
 
+SUMS_IN_ANY_ORDER = frozenset({"reassoc", "contract", "arcp"})
+"""numba fast-math flags for the quadrature sums: reorder and fuse additions and
+multiplications (vectorised node loops, about twice as fast; results move in the last
+digit). Not the flags that assume no inf or NaN: the loops rely on exp overflowing to
+inf at extreme logits."""
 
-def _jit(function, *, cache_on_disk: bool = True):
+
+def _jit(function, *, cache_on_disk: bool = True, fastmath=frozenset()):
     import numba
 
+    fastmath = set(fastmath) or False  # numba takes a set or a bool
+
     try:
-        return numba.njit(cache=cache_on_disk, parallel=True)(function)
+        return numba.njit(cache=cache_on_disk, parallel=True, fastmath=fastmath)(function)
     except RuntimeError:
         # numba found no writable place for its cache (a read-only install and
         # home folder): compile in memory on every run instead of failing.
-        return numba.njit(cache=False, parallel=True)(function)
+        return numba.njit(cache=False, parallel=True, fastmath=fastmath)(function)
 
 
 @cache
@@ -37,9 +45,11 @@ def _compiled():
     from bayes_rr import _numba_loops
 
     return (
-        _jit(_numba_loops.nested_moments),
-        _jit(_numba_loops.log_integrated_binomial),
+        _jit(_numba_loops.nested_moments, fastmath=SUMS_IN_ANY_ORDER),
+        _jit(_numba_loops.log_integrated_binomial, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.rank_scores),
+        _jit(_numba_loops.geyer_ess),
+        _jit(_numba_loops.logistic_moments, fastmath=SUMS_IN_ANY_ORDER),
     )
 
 
@@ -109,3 +119,24 @@ def rank_scores(
     order = np.argsort(rows, axis=1)
     kernel = _compiled()[2]
     return kernel(rows, order, table, _f64(np.atleast_1d(probs)))
+
+
+def geyer_ess(x: np.ndarray, max_lag: int) -> tuple[np.ndarray, np.ndarray]:
+    """ESS of each of the K quantities of ``x`` (chain, draw, K) by ArviZ's algorithm, with
+    autocovariances summed lag by lag as needed; the second array flags the quantities
+    that needed more than ``max_lag`` lags (left NaN, for the FFT path)."""
+    return geyer_ess_rows(np.moveaxis(np.asarray(x, dtype=np.float64), 2, 0), max_lag)
+
+
+def geyer_ess_rows(rows: np.ndarray, max_lag: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`geyer_ess` of a (K, chain, draw) array."""
+    return _compiled()[3](_f64(rows), int(max_lag))
+
+
+def logistic_moments(
+    eta: np.ndarray, scale: np.ndarray, rule: tuple[np.ndarray, np.ndarray]
+) -> tuple[np.ndarray, np.ndarray]:
+    """E[p] and E[p^2] per (draw, element) for p = expit(eta + scale z), z ~ N(0, 1), by the
+    standard-normal ``rule`` (nodes, weights). ``eta`` (S, E), ``scale`` (S,)."""
+    kernel = _compiled()[4]
+    return kernel(_f64(eta), _f64(scale), _f64(rule[0]), _f64(rule[1]))

@@ -57,10 +57,11 @@ def test_average_ranks_match_scipy_rankdata():
 
 
 def test_diagnose_equals_the_separate_functions(chains):
+    # the same algorithm; sums in another order move the last digits only
     r, b, t = diagnose(chains)
-    np.testing.assert_array_equal(r, rhat(chains))
-    np.testing.assert_array_equal(b, ess_bulk(chains))
-    np.testing.assert_array_equal(t, ess_tail(chains))
+    np.testing.assert_allclose(r, rhat(chains), rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(b, ess_bulk(chains), rtol=1e-12)
+    np.testing.assert_allclose(t, ess_tail(chains), rtol=1e-12)
 
 
 def test_one_sort_gives_numpys_median_and_quantiles(chains):
@@ -75,9 +76,9 @@ def test_one_sort_gives_numpys_median_and_quantiles(chains):
         np.testing.assert_array_equal(described["median"], np.median(flat, axis=0))
         np.testing.assert_array_equal(described["quantiles"], np.quantile(flat, probs, axis=0))
         r, b, t = rhat(draws), ess_bulk(draws), ess_tail(draws)
-        np.testing.assert_array_equal(described["r_hat"], r)
-        np.testing.assert_array_equal(described["ess_bulk"], b)
-        np.testing.assert_array_equal(described["ess_tail"], t)
+        np.testing.assert_allclose(described["r_hat"], r, rtol=1e-12, equal_nan=True)
+        np.testing.assert_allclose(described["ess_bulk"], b, rtol=1e-12)
+        np.testing.assert_allclose(described["ess_tail"], t, rtol=1e-12)
 
 
 def test_rank_scores_are_normal_scores_of_scipy_ranks():
