@@ -30,6 +30,7 @@ replacement. A test shows the draws equal those of a fresh compile.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
@@ -51,6 +52,9 @@ DATA_NAMES = frozenset({"observed_calls"})
 part of the key (their values are read at run time from nutpie's user data)."""
 _FILES = ("logp.nbc", "expand.nbc")
 _META = "meta.json"
+MAX_ENTRIES = 200
+"""Compiled models kept (about 1.5 MB each for the demo's design); the least recently
+used go first."""
 
 
 class _Unkeyable(Exception):
@@ -373,6 +377,31 @@ def _store(folder: Path, key: str, meta: dict, results: tuple) -> bool:
     return True
 
 
+def _entries(root: Path) -> list[Path]:
+    """The cache's entries: only folders laid out and completed by this module."""
+    found = []
+    for meta in root.glob(f"*/*/{_META}"):
+        entry = meta.parent
+        if entry.parent.name == entry.name[:2] and len(entry.name) == 64:
+            found.append(entry)
+    return found
+
+
+def prune(root: Path, keep: int | None = None) -> int:
+    """Remove the least recently used entries beyond ``keep`` (MAX_ENTRIES); returns how
+    many."""
+    import shutil
+
+    keep = MAX_ENTRIES if keep is None else keep
+    entries = _entries(root)
+    if len(entries) <= keep:
+        return 0
+    entries.sort(key=lambda entry: (entry / _META).stat().st_mtime)
+    for entry in entries[: len(entries) - keep]:
+        shutil.rmtree(entry, ignore_errors=True)
+    return len(entries) - keep
+
+
 def _load(folder: Path, key: str) -> tuple[dict, list] | None:
     from numba.core.compiler import CompileResult
     from numba.core.registry import cpu_target
@@ -390,6 +419,7 @@ def _load(folder: Path, key: str) -> tuple[dict, list] | None:
         result = CompileResult._rebuild(context, *pickle.loads((folder / name).read_bytes()))
         address = result.library.get_pointer_to_function(result.fndesc.llvm_cfunc_wrapper_name)
         callbacks.append(LoadedCallback(address=address, library=result.library))
+    os.utime(meta_path)  # recently used: kept longest when the cache is pruned
     return meta, callbacks
 
 
@@ -424,6 +454,9 @@ def compile_model(model) -> CompileOutcome:
         stored = _store(folder, key, meta, results)
     except Exception as exc:
         stored, note = False, f"{type(exc).__name__}: {exc}"
+    if stored:
+        with contextlib.suppress(OSError):  # another process pruning at the same time
+            prune(root)
     source = "stored" if stored else "compiled"
     if note:
         source += f" (cache unreadable: {note})"

@@ -148,3 +148,21 @@ def test_a_second_process_loads_what_the_first_compiled(cache_dir):
     assert first["source"] == "stored"
     assert second["source"] == "loaded"
     assert first["rho"] == second["rho"]
+
+
+def test_the_least_recently_used_entries_are_pruned(small_study, cache_dir, monkeypatch):
+    """Beyond MAX_ENTRIES the entry used longest ago goes; a folder that is not an entry
+    is never touched."""
+    monkeypatch.setattr(compile_cache, "MAX_ENTRIES", 1)
+    spec = load_spec("beta-binomial")
+    root = cache_dir / "compiled-models"
+    foreign = root / "notes"
+    foreign.mkdir(parents=True)
+    (foreign / "keep.txt").write_text("not the cache's")
+    first = compile_cache.compile_model(build_model(spec, small_study))
+    other = simulate_beta_binomial(13, 3, 2, seed=1).study
+    second = compile_cache.compile_model(build_model(spec, other))
+    assert (first.source, second.source) == ("stored", "stored")
+    assert not (root / first.key[:2] / first.key).exists()
+    assert (root / second.key[:2] / second.key / "meta.json").is_file()
+    assert (foreign / "keep.txt").read_text() == "not the cache's"
