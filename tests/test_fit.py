@@ -211,3 +211,49 @@ def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatc
     # without two stages, one run of the asked length
     single = fit_study(small_sim.study, spec, settings)
     assert [s["draws"] for s in single.provenance["stages"]] == [600]
+
+
+def test_summaries_match_those_before_the_speed_work(small_sim, fits):
+    """The speed work (disk compile cache, compiled quadrature, one-sort diagnostics,
+    lag-by-lag ESS) changes no result beyond Monte Carlo error. Reference: the same
+    seeded fits made with the code before it (tests/data/summaries_before_speedups.json,
+    commit cf519db). On the machine that made it the draws are the same and the rows
+    agree to about 1e-12; elsewhere the sampler's rounding may differ, so the bounds
+    are Monte Carlo errors: 5 standard errors of a mean (sd / sqrt(ESS)) and of a 2.5%
+    or 97.5% quantile (about 2.7 sd / sqrt(ESS)), both fits' errors combined; ESS within
+    a factor of 2; r_hat below the gate's 1.01 in both."""
+    from pathlib import Path
+
+    from bayes_rr.fit import fit_study
+    from bayes_rr.sampling import SamplerSettings
+    from bayes_rr.spec import load_spec
+
+    path = Path(__file__).parent / "data" / "summaries_before_speedups.json"
+    reference = json.loads(path.read_text())
+    spec = load_spec("reference-logit")
+    # the settings of conftest's fits (FAST)
+    settings = SamplerSettings.from_spec(spec, draws=1000, tune=1000, chains=4, seed=3)
+    now = {
+        "crossed-logit": fits["crossed-logit"],
+        "reference-logit": fit_study(small_sim.study, spec, settings),
+    }
+    for name, rows in reference["fits"].items():
+        result = now[name]
+        found = {(r.key, r.scope, r.appraiser): r
+                 for r in result.estimand_rows + result.parameter_rows}  # fmt: skip
+        assert len(rows) > 30
+        for old in rows:
+            new = found[(old["key"], old["scope"], old["appraiser"])]
+            if old["sd"] is None or not np.isfinite(old["sd"]) or old["sd"] == 0:
+                continue
+            where = f"{name} {old['key']} {old['scope']} {old['appraiser']}"
+
+            def error(ess_field: str, row=old, new=new) -> float:
+                return np.hypot(row["sd"] / np.sqrt(row[ess_field]),
+                                new.sd / np.sqrt(getattr(new, ess_field)))  # fmt: skip
+
+            assert abs(new.mean - old["mean"]) <= 5 * error("ess_bulk"), where
+            assert abs(new.lower - old["lower"]) <= 5 * 2.7 * error("ess_tail"), where
+            assert abs(new.upper - old["upper"]) <= 5 * 2.7 * error("ess_tail"), where
+            assert 0.5 <= new.ess_bulk / old["ess_bulk"] <= 2, where
+            assert new.r_hat < 1.01 and old["r_hat"] < 1.01, where
