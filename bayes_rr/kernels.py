@@ -48,7 +48,7 @@ def _compiled():
         _jit(_numba_loops.nested_moments, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.log_integrated_binomial, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.rank_scores),
-        _jit(_numba_loops.geyer_ess),
+        _jit(_numba_loops.geyer_ess, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.logistic_moments, fastmath=SUMS_IN_ANY_ORDER),
     )
 
@@ -99,6 +99,28 @@ def log_integrated_binomial(
     return kernel(_f64(eta), _f64(scale), _f64(n), _f64(k), _f64(nodes), _f64(log_weights))
 
 
+def _argsort_rows(rows: np.ndarray) -> np.ndarray:
+    """``np.argsort(rows, axis=1)``, blocks of rows sorted in as many threads as the
+    compiled loops use (numba's thread count; numpy's sort releases the GIL)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    import numba
+
+    workers = min(numba.get_num_threads(), 8)
+    if workers < 2 or rows.shape[0] < 64:
+        return np.argsort(rows, axis=1)
+    order = np.empty(rows.shape, dtype=np.intp)
+    bounds = np.linspace(0, rows.shape[0], workers + 1).astype(int)
+
+    def sort_block(block: int) -> None:
+        start, stop = bounds[block], bounds[block + 1]
+        order[start:stop] = np.argsort(rows[start:stop], axis=1)
+
+    with ThreadPoolExecutor(workers) as pool:
+        list(pool.map(sort_block, range(workers)))
+    return order
+
+
 def rank_scores(
     rows: np.ndarray, probs: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -116,7 +138,7 @@ def rank_scores(
     size = rows.shape[1]
     doubled = np.arange(2 * size + 1) / 2.0
     table = ndtri((doubled - 3 / 8) / (size - 2 * 3 / 8 + 1))
-    order = np.argsort(rows, axis=1)
+    order = _argsort_rows(rows)
     kernel = _compiled()[2]
     return kernel(rows, order, table, _f64(np.atleast_1d(probs)))
 
