@@ -17,7 +17,6 @@ because the statistics are discrete); it is flagged below 0.025 or above 0.975.
 
 from __future__ import annotations
 
-import logging
 import warnings
 from dataclasses import dataclass
 
@@ -312,29 +311,16 @@ def prior_predictive(
     """What the priors alone imply for the study-level shares and disagreement probabilities
     on this study's design (quantiles over prior draws).
 
-    A spec that carries an earlier study has a prior with factors PyMC cannot draw
-    from directly: draws of the stated priors are resampled with weights
-    proportional to the factors (sampling importance resampling from four times as
-    many draws).
+    The priors are drawn in numpy (:func:`bayes_rr.prior_draws.draw_prior`), so the
+    check needs no PyMC. A spec that carries an earlier study has a prior with
+    factors that cannot be drawn from directly: draws of the stated priors are
+    resampled with weights proportional to the factors (sampling importance
+    resampling from four times as many draws).
     """
-    import dataclasses
+    from bayes_rr.prior_draws import draw_prior
 
-    import pymc as pm
-
-    from bayes_rr.families import build_model
-
-    stated = dataclasses.replace(spec, earlier=None)
     extra = 4 if spec.earlier is not None else 1
-    # PyMC logs the variables it samples from the prior: noise here. (PyMC sets its
-    # logger's level when first imported, so it is imported before the change.)
-    logger = logging.getLogger("pymc")
-    level = logger.level
-    logger.setLevel(logging.WARNING)
-    try:
-        with build_model(stated, study):
-            prior = pm.sample_prior_predictive(draws=draws * extra, random_seed=seed).prior
-    finally:
-        logger.setLevel(level)
+    prior = draw_prior(spec, study, draws * extra, seed)
     if spec.earlier is not None:
         prior = _resample_earlier(prior, spec, draws, seed)
     estimands = compute_estimands(prior, spec, study, seed)

@@ -525,7 +525,7 @@ def latent_call_curve(
     appraiser and for the population, and (given a production distribution) the expected
     false reject and false accept rates of each appraiser and of the system."""
     from bayes_rr.curves import curve_probabilities, expected_rates
-    from bayes_rr.families.call_curve import curve_design
+    from bayes_rr.families.layout import curve_design
 
     design = curve_design(study, spec.name)
     limits = np.array([value for _, value, _ in design["sides"]])

@@ -126,7 +126,7 @@ def _call_curve_figure(fit: LoadedFit, n: np.ndarray, s: np.ndarray, prob: float
     """Curve bands on a grid of reference values from up to 400 posterior draws."""
     from bayes_rr import plots
     from bayes_rr.curves import curve_probabilities
-    from bayes_rr.families.call_curve import curve_design
+    from bayes_rr.families.layout import curve_design
 
     study = fit.study
     design = curve_design(study, fit.spec.name)

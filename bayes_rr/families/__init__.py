@@ -43,7 +43,7 @@ def add_earlier_study(model: pm.Model, spec: ModelSpec) -> None:
     study's weight: ``weight * log N(u; mu, sigma)`` on the unconstrained scale ``u``."""
     import pymc as pm
 
-    from bayes_rr.families.common import STATUSES
+    from bayes_rr.families.layout import STATUSES
 
     transforms = {
         "identity": lambda x: x,

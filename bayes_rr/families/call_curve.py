@@ -16,35 +16,13 @@ import pymc as pm
 import pytensor.tensor as pt
 
 from bayes_rr.data import StudyData
-from bayes_rr.errors import DataError
-from bayes_rr.families.common import coords, observed_calls, pymc_prior
+from bayes_rr.families.common import observed_calls, pymc_prior
+from bayes_rr.families.layout import coords, curve_design
 from bayes_rr.spec import ModelSpec
 
 P_FLOOR = 1e-12
 """Call probabilities are kept in [P_FLOOR, 1 - P_FLOOR] in the likelihood (two limits'
 curves add up; a part far outside either limit would otherwise give log 0)."""
-
-
-def curve_design(study: StudyData, spec_name: str = "call-curve") -> dict:
-    """The limits (name, value, direction), the reference values and their scale."""
-    if study.reference_value is None:
-        raise DataError(
-            f"{study.source}: the model {spec_name!r} needs a measured reference value per "
-            "part (a 'reference_value' column, or --reference-value-col)"
-        )
-    lower, upper = study.limits
-    sides = [(name, value, sign) for name, value, sign in
-             (("lower", lower, -1.0), ("upper", upper, 1.0)) if value is not None]  # fmt: skip
-    if not sides:
-        raise DataError(
-            f"{study.source}: the model {spec_name!r} needs a specification limit: give "
-            "--upper-limit and/or --lower-limit (or limit columns in the data)"
-        )
-    x = study.reference_value.to_numpy(dtype=float)
-    scale = float(x.std())
-    if not scale > 0:
-        raise DataError(f"{study.source}: every part has the same reference value {x[0]:g}")
-    return {"sides": sides, "x": x, "scale": scale}
 
 
 def link_cdf(link: str, value):

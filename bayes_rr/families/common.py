@@ -7,6 +7,11 @@ import numpy as np
 import pymc as pm
 
 from bayes_rr.data import StudyData
+from bayes_rr.families.layout import (  # noqa: F401 (re-exported)
+    APPRAISER_CORRELATION_ETA,
+    STATUSES,
+    coords,
+)
 from bayes_rr.family_table import AUTO_MIN_LEVELS
 from bayes_rr.priors import Prior
 from bayes_rr.spec import ModelSpec, TermSpec
@@ -66,12 +71,6 @@ def group_effect(name: str, scale, dims: str, parameterization: str):
     return pm.Deterministic(name, raw * scale, dims=dims)
 
 
-STATUSES = ("accept", "reject")
-"""The two statuses of a part (reference or latent), in this order everywhere."""
-APPRAISER_CORRELATION_ETA = 2.0
-"""LKJ shape of the correlation of an appraiser's effects on accept and reject parts."""
-
-
 OBSERVED_CALLS = "observed_calls"
 """Name of the shared variable that holds the reject counts per cell: a compiled model
 takes another study of the same design by replacing it (``with_data``), no compile."""
@@ -80,16 +79,6 @@ takes another study of the same design by replacing it (``with_data``), no compi
 def observed_calls(study: StudyData):
     """The reject counts as model data, so that they can be replaced after compiling."""
     return pm.Data(OBSERVED_CALLS, study.cells["s"].to_numpy(), dims="cell")
-
-
-def coords(study: StudyData) -> dict[str, list[str]]:
-    cells = study.cells
-    return {
-        "part": list(study.parts),
-        "appraiser": list(study.appraisers),
-        "cell": [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)],
-        "status": list(STATUSES),
-    }
 
 
 def status_intercepts(spec: ModelSpec, *, ordered: bool = False):
