@@ -13,7 +13,6 @@ __version__ = "0.1.0"
 # import itself, so only that one notice is silenced.
 warnings.filterwarnings("ignore", message=r"\s*ArviZ is undergoing", category=FutureWarning)
 
-DEFAULT_PROB = 0.95
-"""Default probability of every interval in the project."""
+from bayes_rr.core import DEFAULT_PROB
 
 __all__ = ["DEFAULT_PROB", "__version__"]

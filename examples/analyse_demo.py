@@ -6,14 +6,14 @@ Run from anywhere after `pip install .`:  python examples/analyse_demo.py [OUT_D
 import sys
 from pathlib import Path
 
-from bayes_rr.classical import classical_statistics
-from bayes_rr.data import read_study
-from bayes_rr.describe import demo_path
-from bayes_rr.fit import fit_study
-from bayes_rr.outputs import write_fit
-from bayes_rr.pipeline import check_fit, report_fit
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.spec import load_spec
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.io.fit_folder import write_fit
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.study.classical import classical_statistics
+from bayes_rr.study.data import read_study
+from bayes_rr.study.describe import demo_path
+from bayes_rr.workflow.fit import fit_study
+from bayes_rr.workflow.steps import check_fit, report_fit
 
 
 def main(out_dir: Path) -> None:

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from bayes_rr.simulate import simulate_crossed_logit
+from bayes_rr.simulation.known_truth import simulate_crossed_logit
 
 HEADER = """\
 # INVENTED DATA for the bayes-rr demo: not a real study. A fictional harness

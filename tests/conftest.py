@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from bayes_rr.describe import demo_path
+from bayes_rr.study.describe import demo_path
 
 REPO = Path(__file__).resolve().parent.parent
 
@@ -30,7 +30,7 @@ def demo_csv() -> Path:
 @pytest.fixture(scope="session")
 def small_sim():
     """A small unbalanced simulated study with a reference status."""
-    from bayes_rr.simulate import simulate_crossed_logit
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
 
     return simulate_crossed_logit(
         24, 3, 2, mu=-1.0, sigma_part=2.0, sigma_appraiser=0.6, sigma_interaction=0.3,
@@ -44,9 +44,9 @@ FAST = {"draws": 1000, "tune": 1000, "chains": 4, "seed": 3}
 @pytest.fixture(scope="session")
 def fits(small_sim):
     """One small fit per bundled model, shared by the tests (fit once per session)."""
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.spec import load_spec
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.workflow.fit import fit_study
 
     out = {}
     for name in ("crossed-logit", "beta-binomial"):
@@ -57,7 +57,7 @@ def fits(small_sim):
 
 @pytest.fixture(scope="session")
 def fit_dirs(fits, tmp_path_factory):
-    from bayes_rr.outputs import write_fit
+    from bayes_rr.io.fit_folder import write_fit
 
     root = tmp_path_factory.mktemp("fits")
     return {name: write_fit(result, root / name) for name, result in fits.items()}
@@ -67,10 +67,10 @@ def fit_dirs(fits, tmp_path_factory):
 def strong_appraisers():
     """Appraisers who differ a lot (a feature the beta-binomial model lacks), fitted by both
     bundled models."""
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.simulate import simulate_crossed_logit
-    from bayes_rr.spec import load_spec
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
+    from bayes_rr.workflow.fit import fit_study
 
     sim = simulate_crossed_logit(
         40, 4, 3, mu=0.0, sigma_part=1.5, sigma_appraiser=1.5, sigma_interaction=0.2, seed=8

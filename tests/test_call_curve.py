@@ -13,8 +13,8 @@ from scipy import stats
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.curves import Production, expected_rates
-from bayes_rr.simulate import simulate_call_curve
+from bayes_rr.families.curves import Production, expected_rates
+from bayes_rr.simulation.known_truth import simulate_call_curve
 
 runner = CliRunner()
 
@@ -131,9 +131,9 @@ def test_two_sided_expected_rates_against_numerical_integration():
 
 
 def test_a_two_sided_study_builds_a_model_with_both_limits():
-    from bayes_rr.data import build_study
     from bayes_rr.families import build_model
-    from bayes_rr.spec import load_spec
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.study.data import build_study
 
     sim = simulate_call_curve(12, 2, 2, seed=3)
     study = build_study(sim.study.calls, source="two-sided", limits=(8.5, 10.0),

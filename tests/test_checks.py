@@ -3,19 +3,19 @@
 import numpy as np
 import pytest
 
-from bayes_rr.checks import (
+from bayes_rr.checks.predictive import (
     compare_fits,
     mid_p_value,
     posterior_predictive_check,
     prior_predictive,
     study_statistics,
 )
-from bayes_rr.data import study_from_cells
-from bayes_rr.errors import DataError
-from bayes_rr.fit import fit_study
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.simulate import flip_borderline, simulate_crossed_logit
-from bayes_rr.spec import load_spec
+from bayes_rr.core.errors import DataError
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.simulation.known_truth import flip_borderline, simulate_crossed_logit
+from bayes_rr.study.data import study_from_cells
+from bayes_rr.workflow.fit import fit_study
 
 
 def test_statistics_by_hand():

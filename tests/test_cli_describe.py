@@ -177,9 +177,9 @@ def test_terminal_tables_never_cut_a_value(fits, small_sim, width):
     """At any width the fit's and describe's tables wrap or stack their cells; none ends
     in an ellipsis (rich's mark of a cut value)."""
     from bayes_rr import cli
-    from bayes_rr.classical import classical_statistics
-    from bayes_rr.describe import describe_study
-    from bayes_rr.outputs import summary_document
+    from bayes_rr.io.fit_folder import summary_document
+    from bayes_rr.study.classical import classical_statistics
+    from bayes_rr.study.describe import describe_study
 
     result = fits["crossed-logit"]
     classical = classical_statistics(small_sim.study).as_dict()

@@ -9,10 +9,10 @@ import sys
 import numpy as np
 import pytest
 
-from bayes_rr import compile_cache
 from bayes_rr.families import build_model
-from bayes_rr.simulate import simulate_beta_binomial
-from bayes_rr.spec import load_spec, parse_spec
+from bayes_rr.inference import compile_cache
+from bayes_rr.priors.spec import load_spec, parse_spec
+from bayes_rr.simulation.known_truth import simulate_beta_binomial
 
 
 @pytest.fixture(scope="module")
@@ -89,7 +89,7 @@ def test_a_stored_model_loads_with_the_draws_of_a_fresh_compile(small_study, cac
     # new calls go in through nutpie's data replacement, as with a fresh compile
     other = simulate_beta_binomial(12, 3, 2, seed=2).study
     calls = other.cells["s"].to_numpy()
-    from bayes_rr.families.common import OBSERVED_CALLS
+    from bayes_rr.families.pymc_parts import OBSERVED_CALLS
 
     replaced = _draws(loaded.compiled.with_data(**{OBSERVED_CALLS: calls}))
     fresh = _draws(compile_cache.compile_model(build_model(spec, other)).compiled)
@@ -118,10 +118,10 @@ def test_the_cache_can_be_turned_off(small_study, cache_dir, monkeypatch):
 
 _CHILD = """
 import json, time
-from bayes_rr import compile_cache
+from bayes_rr.inference import compile_cache
 from bayes_rr.families import build_model
-from bayes_rr.simulate import simulate_beta_binomial
-from bayes_rr.spec import load_spec
+from bayes_rr.simulation.known_truth import simulate_beta_binomial
+from bayes_rr.priors.spec import load_spec
 model = build_model(load_spec("beta-binomial"), simulate_beta_binomial(12, 3, 2, seed=1).study)
 start = time.perf_counter()
 outcome = compile_cache.compile_model(model)

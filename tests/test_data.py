@@ -9,10 +9,10 @@ from helpers import write
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bayes_rr.data import ReadOptions, read_study, study_from_frame
-from bayes_rr.describe import describe_study
-from bayes_rr.errors import DataError
-from bayes_rr.jsonio import jsonable
+from bayes_rr.core.errors import DataError
+from bayes_rr.core.jsonio import jsonable
+from bayes_rr.study.data import ReadOptions, read_study, study_from_frame
+from bayes_rr.study.describe import describe_study
 
 TIDY = """part,appraiser,trial,call,reference
 P1,A,1,pass,pass

@@ -9,9 +9,9 @@ import pytest
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.decisions import evaluate_criteria, load_criteria, parse_criteria
-from bayes_rr.errors import SpecError
-from bayes_rr.outputs import summary_document
+from bayes_rr.core.errors import SpecError
+from bayes_rr.io.fit_folder import summary_document
+from bayes_rr.results.decisions import evaluate_criteria, load_criteria, parse_criteria
 
 runner = CliRunner()
 EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "criteria.toml"
@@ -101,7 +101,7 @@ def _estimands(call_rate, repeat=None):
 
 
 def test_comparisons_on_hand_set_draws():
-    from bayes_rr.decisions import compare_appraisers
+    from bayes_rr.results.decisions import compare_appraisers
 
     rng = np.random.default_rng(1)
     rates = rng.normal([0.40, 0.42, 0.15], 0.03, size=(2, 400, 3))
@@ -120,11 +120,11 @@ def test_comparisons_on_hand_set_draws():
 
 @pytest.mark.slow
 def test_a_lenient_appraiser_is_flagged_and_identical_ones_are_not():
-    from bayes_rr.decisions import compare_appraisers
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.simulate import simulate_status_logit
-    from bayes_rr.spec import load_spec
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.results.decisions import compare_appraisers
+    from bayes_rr.simulation.known_truth import simulate_status_logit
+    from bayes_rr.workflow.fit import fit_study
 
     spec = load_spec("reference-logit")
     lenient = np.array([[0.0, 0.0], [0.0, 0.0], [-2.5, -2.5]])

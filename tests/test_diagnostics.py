@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bayes_rr.diagnostics import average_ranks, diagnose, ess_bulk, ess_tail, hdi, rhat
+from bayes_rr.core.diagnostics import average_ranks, diagnose, ess_bulk, ess_tail, hdi, rhat
 
 
 @pytest.fixture(scope="module")
@@ -67,7 +67,7 @@ def test_diagnose_equals_the_separate_functions(chains):
 def test_one_sort_gives_numpys_median_and_quantiles(chains):
     # Reference: numpy.median and numpy.quantile (default linear rule), for an even and
     # an odd number of draws (the odd one takes the two-sort path).
-    from bayes_rr.diagnostics import describe_draws
+    from bayes_rr.core.diagnostics import describe_draws
 
     probs = [0.025, 0.05, 0.5, 0.975]
     for draws in (chains, chains[:, :399]):
@@ -86,7 +86,7 @@ def test_rank_scores_are_normal_scores_of_scipy_ranks():
     # scipy.stats.rankdata's average ranks, of the draws and of |draws - median|.
     from scipy.special import ndtri
 
-    from bayes_rr.kernels import rank_scores
+    from bayes_rr.core.kernels import rank_scores
 
     rows = np.random.default_rng(4).normal(size=(5, 300))
     rows[1] = np.round(rows[1], 1)

@@ -14,15 +14,16 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bayes_rr.earlier import approximate, prior_from_fit
-from bayes_rr.errors import SpecError
-from bayes_rr.estimands import add_shares, decompose_population_logit, study_level
-from bayes_rr.fit import fit_study
-from bayes_rr.outputs import load_fit, write_fit
-from bayes_rr.priors import Prior
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.simulate import simulate_crossed_logit
-from bayes_rr.spec import load_spec, parse_spec
+from bayes_rr.core.distributions import Prior
+from bayes_rr.core.errors import SpecError
+from bayes_rr.core.moments import decompose_population_logit
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.io.fit_folder import load_fit, write_fit
+from bayes_rr.priors.earlier import approximate, prior_from_fit
+from bayes_rr.priors.spec import load_spec, parse_spec
+from bayes_rr.results.estimands import add_shares, study_level
+from bayes_rr.simulation.known_truth import simulate_crossed_logit
+from bayes_rr.workflow.fit import fit_study
 
 FAST = {"draws": 1000, "tune": 1000, "chains": 4}
 

@@ -14,15 +14,15 @@ import pytest
 from scipy import integrate, stats
 from scipy.special import expit, logit
 
-from bayes_rr.elicit import (
+from bayes_rr.core.errors import SpecError
+from bayes_rr.priors.elicit import (
     MEDIAN_ABS_NORMAL,
     elicit,
     gamma_through,
     repeat_disagreement,
     spec_toml,
 )
-from bayes_rr.errors import SpecError
-from bayes_rr.spec import bundled_models, load_spec, parse_spec
+from bayes_rr.priors.spec import bundled_models, load_spec, parse_spec
 
 STATEMENTS = """
 model = "reference-logit"

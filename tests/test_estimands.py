@@ -8,21 +8,23 @@ import xarray as xr
 from scipy import integrate, stats
 from scipy.special import expit
 
-from bayes_rr.data import study_from_cells
-from bayes_rr.estimands import (
+from bayes_rr.core.moments import (
     GH_NODES_BY_SCALE,
-    add_shares,
-    compute_estimands,
     decompose_population_beta,
     decompose_population_logit,
-    decompose_study,
     integrated_cell_log_lik,
     logistic_normal_moments,
     split_reproducibility_logit,
+)
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.results.estimands import (
+    add_shares,
+    compute_estimands,
+    decompose_study,
     study_level,
     summarize,
 )
-from bayes_rr.spec import load_spec
+from bayes_rr.study.data import study_from_cells
 
 
 def _quad_moments(eta, s):
@@ -271,7 +273,7 @@ def test_compiled_kernels_match_plain_numpy():
     # Reference: the same sums written with numpy and scipy.special.logsumexp/log_expit.
     from scipy.special import log_expit, logsumexp
 
-    from bayes_rr.kernels import log_integrated_binomial, nested_moments
+    from bayes_rr.core.kernels import log_integrated_binomial, nested_moments
 
     rng = np.random.default_rng(11)
     eta = rng.normal(0, 3, (6, 5))
@@ -307,7 +309,7 @@ def test_kernels_compile_without_a_disk_cache():
     # writable cache folder) is compiled in memory instead of raising.
     import numba
 
-    from bayes_rr.kernels import _jit
+    from bayes_rr.core.kernels import _jit
 
     namespace = {}
     exec("def add_one(x):\n    return x + 1.0\n", namespace)
@@ -326,7 +328,7 @@ def test_beta_draws_follow_the_beta_distribution_without_rounding_to_0_or_1(a, b
     numpy's Generator.beta returns exactly 1.0 in about half the draws of Beta(50, 0.02))."""
     from scipy import stats
 
-    from bayes_rr.estimands import beta_draws
+    from bayes_rr.core.moments import beta_draws
 
     rng = np.random.default_rng(3)
     p, q = beta_draws(rng, np.full(50_000, a), np.full(50_000, b))
@@ -343,7 +345,7 @@ def test_decomposition_stays_defined_where_p_rounds_to_1():
     and the shares defined when 1 - p is computed as expit(-eta)."""
     from scipy.special import expit
 
-    from bayes_rr.estimands import add_shares, decompose_study
+    from bayes_rr.results.estimands import add_shares, decompose_study
 
     eta = np.array([[[40.0, 41.0, 39.0]]])
     assert np.all(expit(eta) == 1.0)
@@ -360,7 +362,7 @@ def test_decomposition_stays_defined_where_p_rounds_to_1():
 def test_rows_with_undefined_draws_are_summarised_and_kept_in_the_gate():
     import xarray as xr
 
-    from bayes_rr.estimands import summarize
+    from bayes_rr.results.estimands import summarize
 
     rng = np.random.default_rng(0)
     values = rng.normal(0.5, 0.1, (4, 500))

@@ -9,9 +9,9 @@ import pytest
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.estimands import PER_PART_KEYS, POPULATION_ONLY_KEYS, STUDY_KEYS
 from bayes_rr.families import build_model
-from bayes_rr.outputs import FILES, SUMMARY_COLUMNS
+from bayes_rr.io.fit_folder import FILES, SUMMARY_COLUMNS
+from bayes_rr.results.estimands import PER_PART_KEYS, POPULATION_ONLY_KEYS, STUDY_KEYS
 
 runner = CliRunner()
 
@@ -132,7 +132,7 @@ def test_readings_are_plain_sentences(fit_dirs):
 
 
 def test_same_seed_same_numbers(fits, small_sim):
-    from bayes_rr.fit import fit_study
+    from bayes_rr.workflow.fit import fit_study
 
     first = fits["beta-binomial"]
     again = fit_study(small_sim.study, first.spec, first.settings)
@@ -142,7 +142,7 @@ def test_same_seed_same_numbers(fits, small_sim):
 
 
 def test_atomic_write_leaves_nothing_on_failure(fits, tmp_path, monkeypatch):
-    from bayes_rr import outputs
+    from bayes_rr.io import fit_folder as outputs
 
     def broken(*args, **kwargs):
         raise OSError("disk full")
@@ -190,11 +190,11 @@ def test_cli_fit_success_prints_table_and_reading(tmp_path, small_sim):
 def test_two_stage_fit_runs_longer_only_when_the_gate_asks(small_sim, monkeypatch):
     """A first stage too short for the gate (4 x 50 draws cannot give an ESS of 400) is
     followed by the full run of the same compiled model; the provenance records both."""
-    from bayes_rr import compile_cache
-    from bayes_rr import fit as fit_module
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings, forget_compiled
-    from bayes_rr.spec import load_spec
+    from bayes_rr.inference import compile_cache
+    from bayes_rr.inference.sampling import SamplerSettings, forget_compiled
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.workflow import fit as fit_module
+    from bayes_rr.workflow.fit import fit_study
 
     forget_compiled()  # an earlier test may have compiled this design
     compiles = []
@@ -224,9 +224,9 @@ def test_summaries_match_those_before_the_speed_work(small_sim, fits):
     a factor of 2; r_hat below the gate's 1.01 in both."""
     from pathlib import Path
 
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.spec import load_spec
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.workflow.fit import fit_study
 
     path = Path(__file__).parent / "data" / "summaries_before_speedups.json"
     reference = json.loads(path.read_text())

@@ -89,7 +89,7 @@ def test_compact_draws_hold_what_later_commands_read(fits, tmp_path):
     than the full one ('--keep-all-draws')."""
     import numpy as np
 
-    from bayes_rr.outputs import load_fit, write_fit
+    from bayes_rr.io.fit_folder import load_fit, write_fit
 
     result = fits["crossed-logit"]
     compact = load_fit(write_fit(result, tmp_path / "compact"))

@@ -17,7 +17,7 @@ import time
 
 import pytest
 
-from bayes_rr.interrupts import ANNOUNCE_ENV, PAUSE_ENV
+from bayes_rr.core.interrupts import ANNOUNCE_ENV, PAUSE_ENV
 
 QUICK = ["--draws", "100", "--tune", "100", "--chains", "2", "--seed", "1", "--quiet"]
 

@@ -4,7 +4,13 @@ import pytest
 from scipy import stats
 from statsmodels.stats.proportion import confint_proportions_2indep
 
-from bayes_rr.intervals import agresti_caffo, clopper_pearson, jeffreys, newcombe_hybrid, wilson
+from bayes_rr.core.intervals import (
+    agresti_caffo,
+    clopper_pearson,
+    jeffreys,
+    newcombe_hybrid,
+    wilson,
+)
 
 # Newcombe (1998), Statistics in Medicine 17:857-872, Table I (transcribed, see
 # shared/check-values.md): x, n, Wilson, Clopper-Pearson, all to 4 dp.

@@ -7,12 +7,12 @@ import pytest
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app, print_fit
-from bayes_rr.data import study_from_cells
-from bayes_rr.fit import mark_limited, plain_readings
-from bayes_rr.jsonio import jsonable
-from bayes_rr.limitations import CONSTRUCTION, PRIOR, design_limitations
-from bayes_rr.outputs import summary_document
-from bayes_rr.spec import load_spec, models_dir
+from bayes_rr.core.jsonio import jsonable
+from bayes_rr.io.fit_folder import summary_document
+from bayes_rr.priors.spec import load_spec, models_dir
+from bayes_rr.results.limitations import CONSTRUCTION, PRIOR, design_limitations
+from bayes_rr.study.data import study_from_cells
+from bayes_rr.workflow.fit import mark_limited, plain_readings
 
 runner = CliRunner()
 

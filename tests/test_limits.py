@@ -4,12 +4,12 @@ import pytest
 from helpers import write
 from typer.testing import CliRunner
 
-from bayes_rr.classical import MAX_PAIRWISE_APPRAISERS, classical_statistics
 from bayes_rr.cli import app
-from bayes_rr.data import study_from_cells
-from bayes_rr.errors import SpecError
-from bayes_rr.sampling import SamplerSettings, check_memory, planned_memory_bytes
-from bayes_rr.spec import load_spec, models_dir, parse_spec
+from bayes_rr.core.errors import SpecError
+from bayes_rr.inference.sampling import SamplerSettings, check_memory, planned_memory_bytes
+from bayes_rr.priors.spec import load_spec, models_dir, parse_spec
+from bayes_rr.study.classical import MAX_PAIRWISE_APPRAISERS, classical_statistics
+from bayes_rr.study.data import study_from_cells
 
 runner = CliRunner()
 STUDY = "part,appraiser,trial,call\n1,A,1,pass\n1,A,2,fail\n1,B,1,pass\n2,A,1,fail\n2,B,1,fail\n"
@@ -64,7 +64,7 @@ def test_spec_numbers_out_of_range_name_the_key(tmp_path, old, new, key):
 
 
 def test_memory_budget_refuses_with_the_figure(monkeypatch):
-    import bayes_rr.sampling as sampling
+    import bayes_rr.inference.sampling as sampling
 
     monkeypatch.setattr(sampling, "machine_memory_bytes", lambda: 24 * 2**30)
     settings = SamplerSettings(draws=100_000, chains=4)

@@ -3,9 +3,9 @@
 import numpy as np
 import pytest
 
-from bayes_rr.classical import classical_statistics, moment_estimates
-from bayes_rr.data import study_from_cells
-from bayes_rr.simulate import simulate_crossed_logit
+from bayes_rr.simulation.known_truth import simulate_crossed_logit
+from bayes_rr.study.classical import classical_statistics, moment_estimates
+from bayes_rr.study.data import study_from_cells
 
 
 @pytest.fixture

@@ -17,7 +17,7 @@ from helpers import write
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.outputs import MARKER, check_output_dir, write_fit
+from bayes_rr.io.fit_folder import MARKER, check_output_dir, write_fit
 
 runner = CliRunner()
 STUDY = "part,appraiser,trial,call\n" + "".join(

@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bayes_rr.checks import prior_predictive
-from bayes_rr.data import build_study
-from bayes_rr.prior_draws import draw_prior
-from bayes_rr.simulate import simulate_call_curve, simulate_status_logit
-from bayes_rr.spec import load_spec
+from bayes_rr.checks.predictive import prior_predictive
+from bayes_rr.priors.prior_draws import draw_prior
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.simulation.known_truth import simulate_call_curve, simulate_status_logit
+from bayes_rr.study.data import build_study
 
 DRAWS = 3000
 KS_FLOOR = 1e-3
@@ -109,9 +109,9 @@ def test_the_prior_predictive_check_does_not_import_pymc(small_sim, tmp_path):
     small_sim.study.calls.to_csv(tmp_path / "study.csv", index=False)
     code = (
         "import sys\n"
-        "from bayes_rr.checks import prior_predictive\n"
-        "from bayes_rr.data import read_study\n"
-        "from bayes_rr.spec import load_spec\n"
+        "from bayes_rr.checks.predictive import prior_predictive\n"
+        "from bayes_rr.study.data import read_study\n"
+        "from bayes_rr.priors.spec import load_spec\n"
         f"study = read_study({str(tmp_path / 'study.csv')!r})\n"
         "for name in ('crossed-logit', 'beta-binomial'):\n"
         "    rows = prior_predictive(load_spec(name), study, draws=50)\n"
@@ -126,7 +126,7 @@ def test_the_prior_predictive_check_does_not_import_pymc(small_sim, tmp_path):
 def test_prior_predictive_quantiles_agree_with_pymc_draws(small_sim):
     """The check's quantiles from numpy draws against the same estimands computed from
     PyMC's forward draws (estimands.compute_estimands on both)."""
-    from bayes_rr.estimands import compute_estimands
+    from bayes_rr.results.estimands import compute_estimands
 
     spec = load_spec("crossed-logit")
     rows = {

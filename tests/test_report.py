@@ -14,12 +14,12 @@ import pytest
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.data import study_from_cells
-from bayes_rr.fit import fit_study
-from bayes_rr.outputs import write_fit
-from bayes_rr.pipeline import report_fit
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.spec import load_spec
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.io.fit_folder import write_fit
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.study.data import study_from_cells
+from bayes_rr.workflow.fit import fit_study
+from bayes_rr.workflow.steps import report_fit
 
 runner = CliRunner()
 VOID = {"meta", "img", "br", "hr", "link", "input", "col", "area", "base", "source", "wbr"}
@@ -271,7 +271,7 @@ def test_a_dollar_in_a_name_is_not_drawn_as_mathematics():
     # glyph, drawn literally it is eight characters, so its box is far wider.
     import numpy as np
 
-    from bayes_rr.plots import call_grid, literal_text
+    from bayes_rr.report.plots import call_grid, literal_text
 
     def label_width() -> float:
         fig = call_grid(["P1"], [r"$\alpha$"], np.array([[2]]), np.array([[1]]))

@@ -6,10 +6,10 @@ import pytest
 from scipy import stats
 from scipy.special import expit, logsumexp
 
-from bayes_rr.data import study_from_cells
 from bayes_rr.families import build_model
-from bayes_rr.sampling import SamplerSettings, sample_model
-from bayes_rr.spec import load_spec
+from bayes_rr.inference.sampling import SamplerSettings, sample_model
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.study.data import study_from_cells
 
 
 def _quantile_se(q, draws, density_at_quantile, ess):
@@ -94,7 +94,7 @@ def test_single_part_beta_binomial_matches_grid_posterior():
 
 
 def test_settings_validation():
-    from bayes_rr.errors import SpecError
+    from bayes_rr.core.errors import SpecError
 
     with pytest.raises(SpecError, match="sampler 'gibbs'"):
         SamplerSettings(sampler="gibbs")
@@ -106,9 +106,9 @@ def test_compiled_model_takes_new_calls_without_compiling():
     """A second study of the same design reuses the compiled model (no compile) and
     gives exactly the draws of a model compiled afresh for it: replacing the calls is
     the same model, not an approximation."""
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import design_key, forget_compiled
-    from bayes_rr.simulate import simulate_beta_binomial
+    from bayes_rr.inference.sampling import design_key, forget_compiled
+    from bayes_rr.simulation.known_truth import simulate_beta_binomial
+    from bayes_rr.workflow.fit import fit_study
 
     spec = load_spec("beta-binomial")
     settings = SamplerSettings.from_spec(spec, draws=100, tune=100, chains=2, seed=5)

@@ -10,15 +10,15 @@ import numpy as np
 import pytest
 from scipy.special import logsumexp
 
-from bayes_rr.elicit import spec_toml
-from bayes_rr.fit import fit_study
-from bayes_rr.hyperpriors import hyper_parameters, log_prior
-from bayes_rr.outputs import summary_document
-from bayes_rr.priors import Prior
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.sensitivity import THRESHOLD, sentences, verdict
-from bayes_rr.simulate import simulate_crossed_logit
-from bayes_rr.spec import load_spec, parse_spec
+from bayes_rr.core.distributions import Prior
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.io.fit_folder import summary_document
+from bayes_rr.priors.elicit import spec_toml
+from bayes_rr.priors.hyperpriors import hyper_parameters, log_prior
+from bayes_rr.priors.sensitivity import THRESHOLD, sentences, verdict
+from bayes_rr.priors.spec import load_spec, parse_spec
+from bayes_rr.simulation.known_truth import simulate_crossed_logit
+from bayes_rr.workflow.fit import fit_study
 
 FAST = {"draws": 1000, "tune": 1000, "chains": 4}
 

@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from bayes_rr.errors import OutputError, SpecError
+from bayes_rr.core.errors import OutputError, SpecError
+from bayes_rr.priors.spec import load_spec, parse_spec
 from bayes_rr.simulation.designs import (
     Design,
     design_grid,
@@ -25,7 +26,6 @@ from bayes_rr.simulation.designs import (
     reference_statuses,
 )
 from bayes_rr.simulation.quick import fractional_rank
-from bayes_rr.spec import load_spec, parse_spec
 
 
 @pytest.fixture(scope="module")
@@ -216,8 +216,8 @@ def test_calibration_passes_for_the_right_model_and_fails_for_a_wrong_prior(clie
 
 
 def test_batch_reports_a_malformed_file_and_fits_the_rest(client, tmp_path):
-    from bayes_rr.simulate import simulate_beta_binomial
     from bayes_rr.simulation.batch import BatchRequest, find_study_files, run_batch
+    from bayes_rr.simulation.known_truth import simulate_beta_binomial
 
     folder = tmp_path / "stations"
     folder.mkdir()

@@ -4,9 +4,9 @@ import pytest
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.errors import SpecError
-from bayes_rr.family_table import FAMILIES
-from bayes_rr.spec import bundled_models, load_spec, models_dir, parse_spec
+from bayes_rr.core.errors import SpecError
+from bayes_rr.families import FAMILIES
+from bayes_rr.priors.spec import bundled_models, load_spec, models_dir, parse_spec
 
 BUNDLED = sorted(models_dir().glob("*.toml"))
 
@@ -26,7 +26,7 @@ def test_every_bundled_spec_is_valid(path):
 
 
 def _study_for(family: str):
-    from bayes_rr.simulate import simulate_call_curve, simulate_status_logit
+    from bayes_rr.simulation.known_truth import simulate_call_curve, simulate_status_logit
 
     if family == "call_curve":
         return simulate_call_curve(12, 3, 2, seed=0).study
@@ -111,7 +111,7 @@ def test_spec_module_does_not_import_pymc():
     import sys
 
     code = (
-        "import sys, bayes_rr.spec, bayes_rr.data, bayes_rr.classical, bayes_rr.cli;"
+        "import sys, bayes_rr.priors.spec, bayes_rr.study.data, bayes_rr.study.classical, bayes_rr.cli;"
         "print('pymc' in sys.modules)"
     )
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

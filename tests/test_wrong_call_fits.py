@@ -17,11 +17,11 @@ from test_wrong_calls import (
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
-from bayes_rr.data import study_from_cells
-from bayes_rr.fit import fit_study
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.simulate import simulate_status_logit
-from bayes_rr.spec import load_spec, models_dir, parse_spec
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.priors.spec import load_spec, models_dir, parse_spec
+from bayes_rr.simulation.known_truth import simulate_status_logit
+from bayes_rr.study.data import study_from_cells
+from bayes_rr.workflow.fit import fit_study
 
 runner = CliRunner()
 

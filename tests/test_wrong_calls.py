@@ -12,16 +12,15 @@ import pytest
 from scipy import integrate, stats
 from scipy.special import expit
 
-from bayes_rr.data import study_from_cells
-from bayes_rr.wrong_calls import (
+from bayes_rr.families.latent_class import (
     call_patterns,
     class_log_likelihoods,
     identification_problem,
     latent_class_posterior,
-    population_rates,
-    rate_readings,
-    study_rates,
 )
+from bayes_rr.families.status import population_rates, study_rates
+from bayes_rr.results.wrong_calls import rate_readings
+from bayes_rr.study.data import study_from_cells
 
 # Espeland & Handelman (1989): five dentists, 3869 patients; counts of the 32 call
 # patterns in binary order (dentist 1 most significant), read in randomLCA's data file
@@ -197,7 +196,7 @@ def test_readings_name_each_appraiser_with_an_interval():
 def test_standouts_name_an_appraiser_with_a_clearly_higher_rate():
     import xarray as xr
 
-    from bayes_rr.wrong_calls import standouts
+    from bayes_rr.results.wrong_calls import standouts
 
     rng = np.random.default_rng(0)
     draws = rng.normal([0.05, 0.06, 0.30], 0.02, size=(2, 500, 3)).clip(0, 1)

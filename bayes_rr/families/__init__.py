@@ -1,66 +1,73 @@
-"""Model families: how a spec and a study become a PyMC model.
+"""Model families: one module a family, each behind one interface
+(:class:`bayes_rr.families.base.Family`), registered in :data:`FAMILIES`.
 
-Each family module has ``build(spec, study) -> pm.Model`` (a pure function)
-with coords ``part``, ``appraiser`` and ``cell`` and a likelihood on cells.
-The table of families, terms and default priors is ``bayes_rr.family_table``;
-PyMC is imported only when a model is built.
+A family module declares its terms and default priors (``INFO``), builds its PyMC
+model (PyMC is imported only then), draws its prior forward in numpy, turns posterior
+draws into call probabilities and its own estimands, gives the call probabilities the
+predictive check replicates, and lists its hyper-parameters. Shared pieces:
+``terms`` (terms and defaults several families use), ``base`` (the interface),
+``forward`` (numpy prior draws), ``pymc_parts`` (PyMC pieces), ``layout``
+(coordinates), ``status`` (the two status families), ``curves`` (call curves).
+
+May import: ``core``, ``study``. Never imports PyMC at import time.
 """
 
 from __future__ import annotations
 
-import importlib
 from typing import TYPE_CHECKING
 
-from bayes_rr.errors import SpecError
+from bayes_rr.core.errors import SpecError
+from bayes_rr.families import (
+    beta_binomial,
+    call_curve,
+    crossed_logit,
+    latent_class,
+    reference_logit,
+)
+from bayes_rr.families.base import Family
 
 if TYPE_CHECKING:
     import pymc as pm
 
-    from bayes_rr.data import StudyData
-    from bayes_rr.spec import ModelSpec
+    from bayes_rr.priors.spec import ModelSpec
+    from bayes_rr.study.data import StudyData
 
-_MODULES = {
-    "logit": "bayes_rr.families.logit",
-    "beta_binomial": "bayes_rr.families.beta_binomial",
-    "reference_logit": "bayes_rr.families.reference_logit",
-    "latent_class": "bayes_rr.families.latent_class",
-    "call_curve": "bayes_rr.families.call_curve",
+FAMILIES: dict[str, Family] = {
+    module.FAMILY.name: module.FAMILY
+    for module in (beta_binomial, crossed_logit, reference_logit, latent_class, call_curve)
 }
+"""The one table of families: adding a family adds its module here."""
+
+
+def family_of(spec_or_name: ModelSpec | str) -> Family:
+    """The family of a spec (or of a family name)."""
+    name = spec_or_name if isinstance(spec_or_name, str) else spec_or_name.family
+    if name not in FAMILIES:
+        raise SpecError(f"family {name!r}: expected one of {sorted(FAMILIES)}")
+    return FAMILIES[name]
 
 
 def build_model(spec: ModelSpec, study: StudyData) -> pm.Model:
     """Build the PyMC model of ``spec`` for ``study`` (nothing is sampled)."""
-    if spec.family not in _MODULES:
-        raise SpecError(f"{spec.source}: no builder for family {spec.family!r}")
-    model = importlib.import_module(_MODULES[spec.family]).build(spec, study)
+    model = family_of(spec).build(spec, study)
     if spec.earlier is not None:
+        from bayes_rr.families.pymc_parts import add_earlier_study
+
         add_earlier_study(model, spec)
     return model
 
 
-def add_earlier_study(model: pm.Model, spec: ModelSpec) -> None:
-    """Multiply the stated priors by the earlier study's factors, each raised to the
-    study's weight: ``weight * log N(u; mu, sigma)`` on the unconstrained scale ``u``."""
-    import pymc as pm
-
-    from bayes_rr.families.layout import STATUSES
-
-    transforms = {
-        "identity": lambda x: x,
-        "log": pm.math.log,
-        "logit": pm.math.logit,
-    }
-    weight = spec.earlier.weight
-    with model:
-        for factor in spec.earlier.factors:
-            if factor.parameter not in model.named_vars:
-                continue  # a term the new data cannot carry (e.g. no reference column)
-            value = model[factor.parameter]
-            if factor.status is not None:
-                value = value[STATUSES.index(factor.status)]
-            u = transforms[factor.scale](value)
-            label = factor.parameter if factor.status is None else (
-                f"{factor.parameter}_{factor.status}")  # fmt: skip
-            pm.Potential(
-                f"earlier_{label}", (weight * -0.5 * ((u - factor.mu) / factor.sigma) ** 2).sum()
-            )
+def default_model(study) -> tuple[str, str]:
+    """The model ``fit`` uses without ``--model``, and why, in a sentence."""
+    if study.reference is not None and study.reference.nunique() == 2:
+        return "reference-logit", (
+            "the data give each part's reference status, so the reference-logit model "
+            "estimates false reject and false accept rates (--model to choose another)"
+        )
+    if study.reference_value is not None and study.limits != (None, None):
+        return "call-curve", (
+            "the data give a measured reference value per part and a limit, so the "
+            "call-curve model estimates each appraiser's effective limit (--model to choose "
+            "another)"
+        )
+    return "crossed-logit", "model crossed-logit (--model to choose another)"

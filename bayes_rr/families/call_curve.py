@@ -1,4 +1,4 @@
-"""Family 5 of estimands.md: calls along a measured reference value.
+"""Calls along a measured reference value (family 5 of the statistical contract).
 
 p_ij = sum over the limits k of F(d_k (x_i - t_jk) / w_j): each appraiser j places each
 specification limit k at an effective limit t_jk and calls parts within about w_j of it
@@ -11,14 +11,72 @@ w_j = s exp(omega + sigma_width u_j).
 
 from __future__ import annotations
 
-import numpy as np
-import pymc as pm
-import pytensor.tensor as pt
+from typing import TYPE_CHECKING
 
-from bayes_rr.data import StudyData
-from bayes_rr.families.common import observed_calls, pymc_prior
+import numpy as np
+import xarray as xr
+
+from bayes_rr.core.moments import log_binom_coef
+from bayes_rr.families import forward
+from bayes_rr.families.base import (
+    Family,
+    HyperParameter,
+    LatentDraws,
+    cell_index,
+    cell_memory,
+    draws_of,
+    optional_draws,
+    term_hyper_parameters,
+)
+from bayes_rr.families.curves import curve_probabilities, expected_rates
 from bayes_rr.families.layout import coords, curve_design
-from bayes_rr.spec import ModelSpec
+from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
+
+if TYPE_CHECKING:
+    import pymc as pm
+
+    from bayes_rr.priors.spec import ModelSpec
+    from bayes_rr.study.data import StudyData
+
+# Call curve: everything on the scale of the reference values standardised by their
+# standard deviation in the study (so the defaults suit any unit).
+LIMIT_TERM = TermInfo(
+    "limit",
+    "group",
+    prior("half_normal", sigma=0.25),
+    "half_normal(0.25) on the spread of appraisers' effective limits, in standard "
+    "deviations of the study's reference values: appraisers rarely place the limit more "
+    "than half the parts' spread apart.",
+)
+WIDTH_TERM = TermInfo(
+    "width",
+    "group",
+    prior("half_normal", sigma=0.5),
+    "half_normal(0.5) on the spread of appraisers' log transition widths: one appraiser's "
+    "zone of inconsistent calls may be a few times another's.",
+)
+CURVE_INTERCEPTS = {
+    "bias_prior": prior("normal", mu=0.0, sigma=0.5),
+    "log_width_prior": prior("normal", mu=-2.0, sigma=1.0),
+}
+CURVE_INTERCEPTS_WHY = (
+    "normal(0, 0.5) on the typical appraiser's bias (effective limit minus the limit) in "
+    "standard deviations of the reference values; normal(-2, 1) on the log of the typical "
+    "transition width in the same units (median 0.14 sd, 95% range 0.02 to 0.95 sd)."
+)
+LINKS = ("logistic", "probit")
+
+INFO = FamilyInfo(
+    "call_curve",
+    "call curve: p_ij = F((x_i - t_j)/w_j) for a measured reference value x_i and a "
+    "specification limit, with each appraiser's effective limit t_j and transition "
+    "width w_j (estimands.md family 5)",
+    {t.name: t for t in (LIMIT_TERM, WIDTH_TERM)},
+    intercepts=CURVE_INTERCEPTS,
+    links=LINKS,
+    needs=("reference_value",),
+)
+SCALE_VARIABLES = {"limit": "sigma_limit", "width": "sigma_width"}
 
 P_FLOOR = 1e-12
 """Call probabilities are kept in [P_FLOOR, 1 - P_FLOOR] in the likelihood (two limits'
@@ -27,12 +85,20 @@ curves add up; a part far outside either limit would otherwise give log 0)."""
 
 def link_cdf(link: str, value):
     """F of the call curve, on PyTensor tensors."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
     if link == "probit":
         return 0.5 * pt.erfc(-value / np.sqrt(2.0))
     return pm.math.sigmoid(value)
 
 
 def build(spec: ModelSpec, study: StudyData) -> pm.Model:
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from bayes_rr.families.pymc_parts import observed_calls, pymc_prior
+
     design = curve_design(study, spec.name)
     sides, x, s = design["sides"], design["x"], design["scale"]
     cells = study.cells
@@ -67,3 +133,93 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
         pm.Binomial("s", n=cells["n"].to_numpy(), p=pt.clip(p, P_FLOOR, 1 - P_FLOOR),
                     observed=observed_calls(study), dims="cell")  # fmt: skip
     return model
+
+
+def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, draws: int):
+    design = curve_design(study, spec.name)
+    limits = np.array([value for _, value, _ in design["sides"]])
+    s = design["scale"]
+    n_app, n_side = len(study.appraisers), limits.size
+    bias = forward.draw(spec.intercept_prior("bias_prior"), rng, (draws, n_side))
+    t_std = np.broadcast_to(bias[:, None, :], (draws, n_app, n_side))
+    out = {"bias_mean": (("side",), bias)}
+    if spec.has("limit"):
+        spread = forward.draw(spec.term("limit").prior, rng, (draws,))
+        t_std = t_std + spread[:, None, None] * rng.standard_normal((draws, n_app, n_side))
+        out["sigma_limit"] = ((), spread)
+    out["effective_limit"] = (("appraiser", "side"), limits + s * t_std)
+    log_width = forward.draw(spec.intercept_prior("log_width_prior"), rng, (draws,))
+    w_log = np.broadcast_to(log_width[:, None], (draws, n_app))
+    if spec.has("width"):
+        spread = forward.draw(spec.term("width").prior, rng, (draws,))
+        w_log = w_log + spread[:, None] * rng.standard_normal((draws, n_app))
+        out["sigma_width"] = ((), spread)
+    out["log_width_mean"] = ((), log_width)
+    out["transition_width"] = (("appraiser",), s * np.exp(w_log))
+    return out
+
+
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None, production=None) -> LatentDraws:
+    """Call curves: call probabilities of the study's parts, the limits and widths per
+    appraiser and for the population, and (given a production distribution) the expected
+    false reject and false accept rates of each appraiser and of the system."""
+    design = curve_design(study, spec.name)
+    limits = np.array([value for _, value, _ in design["sides"]])
+    signs = np.array([sign for _, _, sign in design["sides"]])
+    scale = design["scale"]
+    limit = draws_of(posterior, "effective_limit")  # (S, appraiser, side)
+    width = draws_of(posterior, "transition_width")  # (S, appraiser)
+    p = curve_probabilities(limit, width, design["x"], signs, spec.link)
+    cells = study.cells
+    part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
+    n, k = cells["n"].to_numpy(), cells["s"].to_numpy()
+    p_cell = np.clip(p[:, part, app], 1e-12, 1 - 1e-12)
+    log_lik = log_binom_coef(n, k) + k * np.log(p_cell) + (n - k) * np.log1p(-p_cell)
+    bias_mean = draws_of(posterior, "bias_mean")  # (S, side), standardised
+    spread = optional_draws(posterior, "sigma_limit", bias_mean.shape[:1])
+    log_width = draws_of(posterior, "log_width_mean")
+    side = ("appraiser", "side")
+    extra = {
+        ("study", "appraiser", "effective_limit"): (limit, side),
+        ("study", "appraiser", "bias"): (limit - limits, side),
+        ("study", "appraiser", "transition_width"): (width, "appraiser"),
+        ("study", "system", "bias"): ((limit - limits).mean(axis=1), "side"),
+        ("study", "system", "limit_spread"): (limit.std(axis=1), "side"),
+        ("study", "system", "transition_width"): (width.mean(axis=1), None),
+        ("population", "system", "effective_limit"): (limits + scale * bias_mean, "side"),
+        ("population", "system", "bias"): (scale * bias_mean, "side"),
+        ("population", "system", "limit_spread"): (scale * spread, None),
+        ("population", "system", "transition_width"): (scale * np.exp(log_width), None),
+    }
+    if production is not None:
+        rates = expected_rates(limit, width, limits, signs, spec.link, production)
+        for key, values in rates.items():
+            extra[("study", "appraiser", key)] = (values, "appraiser")
+            extra[("study", "system", key)] = (values.mean(axis=1), None)
+    return LatentDraws(p, {}, log_lik, extra)
+
+
+def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np.ndarray:
+    part, app = cell_index(study)
+    return latent(posterior, spec, study).p_study[:, part, app]
+
+
+def hyper_parameters(spec: ModelSpec):
+    intercepts = [
+        HyperParameter(variable, ("intercept", key), spec.intercept_prior(key))
+        for variable, key in (("bias_mean", "bias_prior"), ("log_width_mean", "log_width_prior"))
+    ]
+    return (*intercepts, *term_hyper_parameters(spec, SCALE_VARIABLES))
+
+
+FAMILY = Family(
+    info=INFO,
+    build=build,
+    prior_draws=prior_draws,
+    latent=latent,
+    cell_probabilities=cell_probabilities,
+    hyper_parameters=hyper_parameters,
+    memory_per_draw=cell_memory,
+    appraiser_rows=True,
+    takes_production=True,
+)

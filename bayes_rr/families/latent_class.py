@@ -1,4 +1,5 @@
-"""Family 4 of estimands.md: two latent classes of parts, no reference needed.
+"""Two latent classes of parts, no reference needed (family 4 of the statistical
+contract).
 
 Each part is a reject part with probability theta (``prevalence``); given its class r,
 logit p_ij = mu_r + a_i + b_j,r, with mu_reject > mu_accept (an ordered pair, so the
@@ -11,25 +12,77 @@ by their number.
 
 from __future__ import annotations
 
-import numpy as np
-import pymc as pm
-import pytensor.tensor as pt
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from bayes_rr.data import StudyData
-from bayes_rr.errors import DataError
-from bayes_rr.families.common import (
-    appraiser_by_status,
-    coords,
-    pymc_prior,
-    status_intercepts,
+import numpy as np
+import xarray as xr
+from scipy.special import expit, gammaln, log_expit, logsumexp
+
+from bayes_rr.core.errors import DataError
+from bayes_rr.families import forward
+from bayes_rr.families.base import Family, LatentDraws, cell_index, draws_of
+from bayes_rr.families.status import (
+    PER_STATUS_SCALES,
+    STATEMENTS,
+    StatusDraws,
+    population_rates,
+    rate_variables,
+    status_draws,
+    study_rates,
 )
-from bayes_rr.spec import ModelSpec
-from bayes_rr.wrong_calls import call_patterns, identification_problem, part_nodes
+from bayes_rr.families.status import hyper_parameters as status_hyper_parameters
+from bayes_rr.families.terms import (
+    PART_TERM,
+    STATUS_APPRAISER_TERM,
+    STATUS_INTERCEPTS,
+    FamilyInfo,
+    prior,
+)
+
+if TYPE_CHECKING:
+    import pymc as pm
+
+    from bayes_rr.priors.spec import ModelSpec
+    from bayes_rr.study.data import StudyData
+
+PREVALENCE_PRIOR = prior("beta", alpha=1.0, beta=1.0)
+PREVALENCE_WHY = (
+    "beta(1, 1) on the share of reject parts among the study's parts: uniform, since "
+    "studies pick their share of bad parts on purpose."
+)
+INFO = FamilyInfo(
+    "latent_class",
+    "latent class: each part's status r(i) unknown, P(reject part) = theta, summed out "
+    "of the likelihood; logit p_ij = mu_r + a_i + b_j,r with mu_reject > mu_accept "
+    "(estimands.md family 4)",
+    {t.name: t for t in (PART_TERM, STATUS_APPRAISER_TERM)},
+    intercepts=STATUS_INTERCEPTS,
+    prevalence_prior=PREVALENCE_PRIOR,
+)
+
+IDENTIFICATION_NOTE = (
+    "The latent class model tells reject parts from accept parts by the pattern of calls "
+    "alone. It is identified when each part gets enough calls (three or more appraisers, "
+    "or repeated trials) and rests on one assumption the data cannot check fully: given a "
+    "part's class, its calls are independent (no appraiser copies another, no part is "
+    "hard for all appraisers beyond what the part term allows)."
+)
 
 
 def build(spec: ModelSpec, study: StudyData) -> pm.Model:
     """log L = sum_k w_k log[(1 - theta) L_k(accept) + theta L_k(reject)], where L_k(r)
     integrates the part's effect a ~ N(0, sigma_part) by Gauss-Hermite quadrature."""
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from bayes_rr.families.pymc_parts import (
+        appraiser_by_status,
+        coords,
+        pymc_prior,
+        status_intercepts,
+    )
+
     problem = identification_problem(study)
     if problem:
         raise DataError(f"{study.source}: {problem}")
@@ -54,3 +107,253 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
         mixed = pt.logaddexp(pt.log1p(-theta) + log_lik[0], pm.math.log(theta) + log_lik[1])
         pm.Potential("calls", (np.asarray(patterns.weight) * mixed).sum())
     return model
+
+
+PART_NODES = 24
+"""Gauss-Hermite nodes over a part's effect in the latent class model. A part's calls
+(a dozen or so) give a smooth likelihood in its effect; 24 nodes integrate it to well
+below Monte Carlo error for part scales up to about 3 (the prior allows far less)."""
+
+
+@dataclass(frozen=True)
+class Patterns:
+    """The study as (pattern, appraiser) grids of trials ``n`` and rejects ``s``.
+
+    Parts with the same calls have the same likelihood once the class (and the part's
+    effect) are integrated out: they are grouped into one pattern with a ``weight``
+    (3869 patients of five dentists are 32 patterns); ``part_of`` maps each part to its
+    pattern.
+    """
+
+    n: np.ndarray  # (K, J)
+    s: np.ndarray  # (K, J)
+    weight: np.ndarray  # (K,)
+    part_of: np.ndarray  # (I,)
+
+
+def call_patterns(study: StudyData) -> Patterns:
+    cells = study.cells
+    n = np.zeros((len(study.parts), len(study.appraisers)), dtype=np.int64)
+    s = np.zeros_like(n)
+    n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
+    s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
+    rows, part_of, counts = np.unique(
+        np.concatenate([n, s], axis=1), axis=0, return_inverse=True, return_counts=True
+    )
+    j = n.shape[1]
+    return Patterns(rows[:, :j], rows[:, j:], counts.astype(float), part_of.ravel())
+
+
+def part_nodes(has_part: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Standard-normal nodes and log weights over a part's effect (one node at 0 without a
+    part term)."""
+    if not has_part:
+        return np.zeros(1), np.zeros(1)
+    from bayes_rr.core.moments import gauss_hermite
+
+    u, w = gauss_hermite(PART_NODES)
+    return u, np.log(w)
+
+
+def class_log_likelihoods(
+    patterns: Patterns,
+    intercept: np.ndarray,
+    appraiser_effect: np.ndarray,
+    sigma_part: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Log likelihood of each pattern's calls given each status, the part's effect
+    a ~ N(0, sigma_part^2) integrated out (binomial coefficients included): (S, K, 2);
+    and E[p_ij | calls, status] with the same integral, (S, K, J, 2)."""
+    n, s = patterns.n[None, :, None, :], patterns.s[None, :, None, :]
+    coef = (gammaln(patterns.n + 1) - gammaln(patterns.s + 1)
+            - gammaln(patterns.n - patterns.s + 1)).sum(axis=-1)  # fmt: skip
+    u, log_w = part_nodes(sigma_part is not None)
+    a = (np.zeros((intercept.shape[0], 1)) if sigma_part is None
+         else sigma_part[:, None] * u[None, :])  # fmt: skip
+    marginal, expected = [], []
+    for status in (0, 1):
+        # (S, K, Q, J): draw, pattern, node, appraiser
+        eta = (intercept[:, status, None, None, None] + a[:, None, :, None]
+               + appraiser_effect[:, None, None, :, status])  # fmt: skip
+        at_node = (s * log_expit(eta) + (n - s) * log_expit(-eta)).sum(axis=-1) + log_w
+        total = logsumexp(at_node, axis=-1)  # (S, K)
+        posterior_node = np.exp(at_node - total[..., None])  # (S, K, Q)
+        expected.append(np.einsum("skq,skqj->skj", posterior_node, expit(eta)))
+        marginal.append(total + coef)
+    return np.stack(marginal, axis=-1), np.stack(expected, axis=-1)
+
+
+def latent_class_posterior(
+    log_lik: np.ndarray, prevalence: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Each pattern's probability of being a reject part (S, K), and its marginal log
+    likelihood (S, K), given the draw's parameters."""
+    joint = log_lik + np.stack([np.log1p(-prevalence), np.log(prevalence)], axis=-1)[:, None]
+    marginal = logsumexp(joint, axis=-1)
+    return np.exp(joint[..., 1] - marginal), marginal
+
+
+@dataclass(frozen=True)
+class LatentClassDraws:
+    """Per-draw quantities of a latent class fit."""
+
+    params: StatusDraws
+    prevalence: np.ndarray  # (S,)
+    reject_weight: np.ndarray  # (S, part): P(part is a reject part | calls, draw)
+    p_if: tuple[np.ndarray, np.ndarray]  # (S, part, appraiser): E[p | calls, status]
+    part_log_lik: np.ndarray  # (S, part): marginal log likelihood of the part's calls
+
+
+DRAW_BLOCK = 250
+"""Draws per block in the latent class quadrature (bounds draws x parts x nodes x
+appraisers temporaries to some tens of MB for a typical study)."""
+
+
+def _blocks(total: int) -> list[slice]:
+    return [slice(start, start + DRAW_BLOCK) for start in range(0, total, DRAW_BLOCK)]
+
+
+def class_draws(posterior: xr.Dataset, study: StudyData) -> LatentClassDraws:
+    d = status_draws(posterior, study)
+    patterns = call_patterns(study)
+    prevalence = draws_of(posterior, "prevalence")
+    sigma = d.sigma_part if "sigma_part" in posterior else None
+    pieces = [
+        class_log_likelihoods(
+            patterns,
+            d.intercept[block],
+            d.appraiser_effect[block],
+            None if sigma is None else sigma[block],
+        )
+        for block in _blocks(d.intercept.shape[0])
+    ]
+    log_lik = np.concatenate([p[0] for p in pieces])
+    expected = np.concatenate([p[1] for p in pieces])
+    reject_prob, marginal = latent_class_posterior(log_lik, prevalence)
+    part_of = patterns.part_of
+    return LatentClassDraws(
+        d,
+        prevalence,
+        reject_prob[:, part_of],
+        (expected[..., 0][:, part_of], expected[..., 1][:, part_of]),
+        marginal[:, part_of],
+    )
+
+
+def rates(posterior: xr.Dataset, study: StudyData) -> tuple[dict, np.ndarray]:
+    """Estimands of the latent class model, ``(scope, level, key) -> (draws, dim)``: the
+    rates of both scopes, the prevalence and each part's reject probability; and the
+    per-part log likelihood (S, part) for leave-one-part-out."""
+    lc = class_draws(posterior, study)
+    d = lc.params
+    rates = {
+        "study": study_rates(lc.p_if[0], lc.p_if[1], lc.reject_weight),
+        "population": population_rates(
+            d.intercept,
+            d.appraiser_effect,
+            d.sigma_part,
+            d.sigma_appraiser,
+            np.zeros_like(d.sigma_part),
+            lc.prevalence,
+        ),
+    }
+    out = rate_variables(rates)
+    out[("study", "study", "reject_prevalence")] = (lc.reject_weight.mean(axis=1), None)
+    out[("population", "study", "reject_prevalence")] = (lc.prevalence, None)
+    out[("study", "part", "reject_probability")] = (lc.reject_weight, "part")
+    return out, lc.part_log_lik
+
+
+def weak_identification(estimands: xr.Dataset, prob: float = 0.95) -> str | None:
+    """A sentence when the latent class model is weakly identified: the classes are not
+    clearly apart, or the prevalence is barely pinned down."""
+    far = estimands.get("population__system__false_accept_rate")
+    frr = estimands.get("population__system__false_reject_rate")
+    prev = estimands.get("population__study__reject_prevalence")
+    if far is None or frr is None or prev is None:
+        return None
+    separation = (1 - far - frr).to_numpy().ravel()  # call-rate gap between the classes
+    lo = float(np.quantile(separation, (1 - prob) / 2))
+    prevalence = prev.to_numpy().ravel()
+    width = float(np.diff(np.quantile(prevalence, [(1 - prob) / 2, (1 + prob) / 2]))[0])
+    if lo < 0.2 or width > 0.5:
+        return (
+            "The two classes are weakly identified: the data do not clearly separate reject "
+            f"parts from accept parts (gap in call rates {lo:.2f} or more, prevalence interval "
+            f"{width:.2f} wide), so the rates below rest largely on the priors and on the "
+            "model's assumption that calls are independent given a part's class."
+        )
+    return None
+
+
+def identification_problem(study: StudyData) -> str | None:
+    """Why a two-class latent model cannot be identified from this design, or None.
+
+    Each part gives a pattern of per-appraiser reject counts: (T + 1)^J patterns with
+    T trials and J appraisers, so (T + 1)^J - 1 free frequencies must cover the 2J + 1
+    parameters of the basic model (two rates per appraiser and the prevalence).
+    """
+    trials = int(study.cells["n"].max())
+    count = len(study.appraisers)
+    free = (trials + 1) ** count - 1
+    needed = 2 * count + 1
+    if free < needed:
+        return (
+            f"{count} appraiser(s) with up to {trials} call(s) per part give {free} free "
+            f"call-pattern frequencies, fewer than the {needed} parameters of a two-class "
+            "model: it cannot be identified. Use three or more appraisers, or repeated "
+            "trials, or a reference status per part (reference-logit)"
+        )
+    return None
+
+
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng, production=None) -> LatentDraws:
+    extra, part_log_lik = rates(posterior, study)
+    return LatentDraws(None, {}, part_log_lik, extra, log_lik_dim="part")
+
+
+def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, draws: int):
+    intercepts = forward.status_intercepts(spec, rng, draws, ordered=True)
+    out = {"intercept": (("status",), intercepts)}
+    out["prevalence"] = ((), forward.draw(spec.prevalence, rng, (draws,)))
+    out.update(forward.appraiser_by_status(spec, study, rng, draws))
+    if spec.has("part"):
+        out["sigma_part"] = ((), forward.draw(spec.term("part").prior, rng, (draws,)))
+    return out
+
+
+def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np.ndarray:
+    """Each part's class drawn from its posterior in the draw, then its call rates."""
+    lc = class_draws(posterior, study)
+    bad = rng.random(lc.reject_weight.shape) < lc.reject_weight
+    p = np.where(bad[:, :, None], lc.p_if[1], lc.p_if[0])
+    part, app = cell_index(study)
+    return p[:, part, app]
+
+
+def hyper_parameters(spec: ModelSpec):
+    from bayes_rr.families.base import HyperParameter
+
+    prevalence = HyperParameter("prevalence", ("prevalence", "prior"), spec.prevalence)
+    return (*status_hyper_parameters(spec), prevalence)
+
+
+def memory_per_draw(parts: int, appraisers: int, cells: int) -> int:
+    """No per-part decomposition: a part's reject probability and log likelihood, and
+    two call probabilities per part and appraiser."""
+    return 2 * (parts + appraisers) + 3 * parts + 4 * parts * appraisers
+
+
+FAMILY = Family(
+    info=INFO,
+    build=build,
+    prior_draws=prior_draws,
+    latent=latent,
+    cell_probabilities=cell_probabilities,
+    hyper_parameters=hyper_parameters,
+    memory_per_draw=memory_per_draw,
+    per_status_scales=PER_STATUS_SCALES,
+    statements=STATEMENTS,
+    identification_note=IDENTIFICATION_NOTE,
+    weak_identification=weak_identification,
+)

@@ -6,8 +6,8 @@ prior draws) can read it without importing PyMC.
 
 from __future__ import annotations
 
-from bayes_rr.data import StudyData
-from bayes_rr.errors import DataError
+from bayes_rr.core.errors import DataError
+from bayes_rr.study.data import StudyData
 
 STATUSES = ("accept", "reject")
 """The two statuses of a part (reference or latent), in this order everywhere."""

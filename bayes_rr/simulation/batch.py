@@ -8,8 +8,8 @@ import glob
 from dataclasses import dataclass
 from pathlib import Path
 
-from bayes_rr import DEFAULT_PROB
-from bayes_rr.errors import DataError
+from bayes_rr.core import DEFAULT_PROB
+from bayes_rr.core.errors import DataError
 from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
 from bayes_rr.simulation.seeds import signature
 
@@ -67,13 +67,13 @@ def task_ids(files: tuple[Path, ...]) -> list[str]:
 
 def batch_task(payload: dict) -> dict:
     """Read, fit and write one study; returns its row of the table."""
-    from bayes_rr.classical import classical_statistics
-    from bayes_rr.data import read_study
-    from bayes_rr.family_table import default_model
-    from bayes_rr.fit import fit_study
-    from bayes_rr.outputs import summary_document, write_fit
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.spec import load_spec
+    from bayes_rr.families import default_model
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.io.fit_folder import summary_document, write_fit
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.study.classical import classical_statistics
+    from bayes_rr.study.data import read_study
+    from bayes_rr.workflow.fit import fit_study
 
     path = Path(payload["file"])
     study = read_study(path)
@@ -117,15 +117,15 @@ def run_batch(
     import pandas as pd
 
     from bayes_rr import __version__
-    from bayes_rr.jsonio import dumps, write_text_atomic
-    from bayes_rr.outputs import GENERATOR
+    from bayes_rr.core.jsonio import dumps, write_text_atomic
+    from bayes_rr.io.fit_folder import GENERATOR
 
     out = Path(out)
     for path in request.files:
         if out.resolve() in path.resolve().parents:
             raise DataError(f"--out {out}: holds the study file {path}; give a new folder")
     if request.model is not None:
-        from bayes_rr.spec import load_spec
+        from bayes_rr.priors.spec import load_spec
 
         load_spec(request.model)  # a bad model name is reported before any work
     ids = task_ids(request.files)
@@ -160,7 +160,7 @@ def batch_html(table, failures: list[dict], generator: str, prob: float) -> str:
     """A one-page report: the table across the studies and the files that failed."""
     from html import escape
 
-    from bayes_rr.report import CAUTIONS
+    from bayes_rr.report.html import CAUTIONS
 
     head = (f'<!doctype html><html lang="en"><head><meta charset="utf-8">'
             f'<meta name="generator" content="{escape(generator)}">'

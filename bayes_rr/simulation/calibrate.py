@@ -11,7 +11,9 @@ from pathlib import Path
 
 import numpy as np
 
-from bayes_rr.errors import SpecError
+from bayes_rr.core.errors import SpecError
+from bayes_rr.io.fit_folder import CALIBRATION_FILE
+from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import Design, check_simulated, needs_reference
 from bayes_rr.simulation.quick import (
     CALIBRATED_KEYS,
@@ -25,9 +27,7 @@ from bayes_rr.simulation.quick import (
 from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
 from bayes_rr.simulation.seeds import derived_seed, signature
 from bayes_rr.simulation.truths import simulate_design
-from bayes_rr.spec import ModelSpec
 
-CALIBRATION_FILE = "calibration.json"
 FIGURE_FILE = "calibration_ranks.png"
 UNIFORMITY_LEVEL = 0.001
 """A rank-uniformity p-value below this flags a miscalibrated result (several results
@@ -52,7 +52,7 @@ class CalibrationRequest:
 def calibration_task(payload: dict) -> dict:
     """One simulated study fitted: each checked quantity's fractional rank and whether
     the 50% and 90% intervals held the truth."""
-    from bayes_rr.estimands import compute_estimands
+    from bayes_rr.results.estimands import compute_estimands
 
     study, spec, settings = payload["study"], payload["spec"], payload["settings"]
     fit, _ = quick_fit(study, spec, settings, CALIBRATED_KEYS)
@@ -133,8 +133,8 @@ def run_calibration(
 ) -> dict:  # fmt: skip
     """Run the calibration on Dask and write ``calibration.json`` and the rank figure."""
     from bayes_rr import __version__
-    from bayes_rr.jsonio import dumps, write_bytes_atomic, write_text_atomic
-    from bayes_rr.outputs import GENERATOR
+    from bayes_rr.core.jsonio import dumps, write_bytes_atomic, write_text_atomic
+    from bayes_rr.io.fit_folder import GENERATOR
     from bayes_rr.simulation.figures import ecdf_difference_figure
 
     spec, design = request.spec, request.design

@@ -6,15 +6,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from bayes_rr.data import StudyData, study_from_cells
-from bayes_rr.errors import SpecError
-from bayes_rr.spec import ModelSpec
+from bayes_rr.core.errors import SpecError
+from bayes_rr.families import FAMILIES, family_of
+from bayes_rr.priors.spec import ModelSpec
+from bayes_rr.study.data import StudyData, study_from_cells
 
-SIMULATED_FAMILIES = ("beta_binomial", "logit", "reference_logit")
-"""Families whose studies can be simulated from the model itself (their calls are an
-observed variable of the PyMC model). The latent class model's likelihood is built
-from the observed patterns and the call-curve model needs reference values: neither
-is simulated yet."""
+# Which families can be simulated is each family's declaration (``Family.simulated``):
+# their calls are an observed variable of the PyMC model. The latent class model's
+# likelihood is built from the observed patterns and the call-curve model needs
+# reference values: neither is simulated yet.
 BORDERLINE = (0.1, 0.9)
 """A part is borderline when a typical appraiser rejects it with a probability in this
 range: repeat calls on it disagree, so it carries the information on repeatability."""
@@ -74,15 +74,16 @@ def needs_reference(spec: ModelSpec) -> bool:
     """Whether simulated studies carry a reference status per part: for the model that
     needs it. The other models' optional reference term stays out (studies without a
     reference column, the usual case for a repeatability study)."""
-    return spec.family == "reference_logit"
+    return family_of(spec).simulated_with_reference
 
 
 def check_simulated(spec: ModelSpec, part_mix: float | None) -> None:
     """Refuse a model or part mix the simulator cannot serve, before any work."""
-    if spec.family not in SIMULATED_FAMILIES:
+    if not family_of(spec).simulated:
+        simulated = [name for name, family in FAMILIES.items() if family.simulated]
         raise SpecError(
             f"model {spec.name!r} (family {spec.family}): studies can be simulated for the "
-            f"families {', '.join(SIMULATED_FAMILIES)} only; choose one of their models"
+            f"families {', '.join(simulated)} only; choose one of their models"
         )
     if part_mix is not None and not 0 <= part_mix <= 1:
         raise SpecError(f"--part-mix {part_mix!r}: expected a share from 0 to 1")

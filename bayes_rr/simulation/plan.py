@@ -10,14 +10,15 @@ from pathlib import Path
 
 import numpy as np
 
-from bayes_rr import DEFAULT_PROB
-from bayes_rr.errors import SpecError
+from bayes_rr.core import DEFAULT_PROB
+from bayes_rr.core.errors import SpecError
+from bayes_rr.families import family_of
+from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import Design, check_simulated
 from bayes_rr.simulation.quick import PLAN_KEYS, interval, quick_fit, simulation_settings
 from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
 from bayes_rr.simulation.seeds import derived_seed, signature
 from bayes_rr.simulation.truths import simulate_design
-from bayes_rr.spec import ModelSpec
 
 PLAN_FILE = "plan.json"
 FIGURE_FILE = "plan_widths.png"
@@ -46,9 +47,7 @@ def default_target_key(spec: ModelSpec) -> str:
     """The result that usually decides a design: the false accept rate when parts have a
     reference status, otherwise the reproducibility variance (few appraisers pin it
     down slowest)."""
-    if spec.family == "reference_logit":
-        return "study__system__false_accept_rate"
-    return "study__study__reproducibility_variance"
+    return family_of(spec).default_plan_target
 
 
 def resolve_target_key(key: str | None, spec: ModelSpec) -> str:
@@ -94,7 +93,7 @@ def plan_task(payload: dict) -> dict:
     met = None
     probabilities = []
     if payload["criteria"]:
-        from bayes_rr.decisions import evaluate_criteria
+        from bayes_rr.results.decisions import evaluate_criteria
 
         rows = evaluate_criteria(payload["criteria"], estimands)
         probabilities = [row["probability"] for row in rows]
@@ -156,7 +155,7 @@ def _summarise_design(design: Design, results: list[dict], failures: int, reache
 
 def result_label(variable: str) -> str:
     """``study__study__repeatability_variance`` -> "repeatability variance (study)"."""
-    from bayes_rr.glossary import name
+    from bayes_rr.core.glossary import name
 
     scope, _, key = variable.split("__")
     return f"{name(key)} ({scope})"
@@ -205,8 +204,8 @@ def run_plan(
 ) -> dict:  # fmt: skip
     """Run the plan on Dask and write ``plan.json`` and the width figure into ``out``."""
     from bayes_rr import __version__
-    from bayes_rr.jsonio import dumps, write_bytes_atomic, write_text_atomic
-    from bayes_rr.outputs import GENERATOR
+    from bayes_rr.core.jsonio import dumps, write_bytes_atomic, write_text_atomic
+    from bayes_rr.io.fit_folder import GENERATOR
     from bayes_rr.simulation.figures import width_figure
 
     check_request(request)
@@ -214,8 +213,8 @@ def run_plan(
     out = Path(out)
     earlier_posterior, analysis_spec, earlier = None, request.spec, None
     if request.earlier_folder is not None:
-        from bayes_rr.earlier import prior_from_fit
-        from bayes_rr.outputs import load_fit
+        from bayes_rr.io.fit_folder import load_fit
+        from bayes_rr.priors.earlier import prior_from_fit
 
         loaded = load_fit(request.earlier_folder)
         analysis_spec, _ = prior_from_fit(loaded, 1.0, request.spec)

@@ -15,16 +15,16 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from bayes_rr.data import StudyData
-from bayes_rr.estimands import compute_estimands, latent_draws
-from bayes_rr.sampling import (
+from bayes_rr.inference.sampling import (
     SamplerSettings,
     cached_compiled,
     design_key,
     remember_compiled,
     sample_model,
 )
-from bayes_rr.spec import ModelSpec
+from bayes_rr.priors.spec import ModelSpec
+from bayes_rr.results.estimands import compute_estimands, latent_draws
+from bayes_rr.study.data import StudyData
 
 SIM_DRAWS, SIM_TUNE, SIM_CHAINS = 500, 500, 2
 SIM_R_HAT_MAX = 1.05

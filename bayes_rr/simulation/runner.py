@@ -4,7 +4,7 @@ Results are written one file per task as they come back, so an interrupted run r
 where it stopped (tasks with a result file are not run again). A task that raises is
 recorded with its input and reported, never dropped; it runs again on a resumed run.
 Each task carries its own seed, so a run gives the same results with any number of
-workers. A worker keeps the models it compiled (``bayes_rr.sampling``), so it compiles
+workers. A worker keeps the models it compiled (``bayes_rr.inference.sampling``), so it compiles
 each model and design once.
 """
 
@@ -18,8 +18,8 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from bayes_rr.errors import OutputError
-from bayes_rr.jsonio import dumps, write_text_atomic
+from bayes_rr.core.errors import OutputError
+from bayes_rr.core.jsonio import dumps, write_text_atomic
 
 TASKS_DIR = "tasks"
 RUN_FILE = "run.json"
@@ -89,7 +89,7 @@ def prepare_run_dir(out_dir: Path, command: str, signature: str) -> None:
     resumed run). Anything else is refused: nothing the toolkit did not write is
     touched."""
     from bayes_rr import __version__
-    from bayes_rr.outputs import GENERATOR, check_location
+    from bayes_rr.io.fit_folder import GENERATOR, check_location
 
     run_file = out_dir / RUN_FILE
     if out_dir.exists() and not out_dir.is_dir():

@@ -15,6 +15,6 @@ def derived_seed(seed: int, *path: int) -> int:
 
 def signature(document: dict) -> str:
     """Hash of a run's settings: a folder is resumed only by the same run."""
-    from bayes_rr.jsonio import dumps
+    from bayes_rr.core.jsonio import dumps
 
     return hashlib.sha256(dumps(document).encode()).hexdigest()

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from bayes_rr.data import StudyData, study_from_cells
-from bayes_rr.errors import SpecError
+from bayes_rr.core.errors import SpecError
+from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import (
     POOL_FACTOR,
     Design,
@@ -25,7 +25,7 @@ from bayes_rr.simulation.designs import (
     pick_parts,
     skeleton_study,
 )
-from bayes_rr.spec import ModelSpec
+from bayes_rr.study.data import StudyData, study_from_cells
 
 GROUP_DIMS = ("part", "appraiser", "cell")
 
@@ -157,8 +157,8 @@ def simulate_design(
     a pool of candidates drawn from the same population (:data:`POOL_FACTOR` per part)
     so that that share of them is borderline.
     """
-    from bayes_rr.estimands import part_linear_predictor
     from bayes_rr.families import build_model
+    from bayes_rr.families.base import part_linear_predictor
 
     if spec.earlier is not None and earlier_posterior is None:
         raise SpecError(

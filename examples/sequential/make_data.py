@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from bayes_rr.simulate import simulate_status_logit
+from bayes_rr.simulation.known_truth import simulate_status_logit
 
 HEADER = """\
 # INVENTED DATA for the bayes-rr sequential example: not a real study. A fictional

@@ -6,13 +6,13 @@ Run from this folder:  python sequential.py [OUT_DIR]
 import sys
 from pathlib import Path
 
-from bayes_rr.data import read_study
-from bayes_rr.decisions import load_criteria
-from bayes_rr.earlier import as_dict, prior_from_fit
-from bayes_rr.fit import fit_study
-from bayes_rr.outputs import load_fit, write_fit
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.spec import load_spec
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.io.fit_folder import load_fit, write_fit
+from bayes_rr.priors.earlier import as_dict, prior_from_fit
+from bayes_rr.priors.spec import load_spec
+from bayes_rr.results.decisions import load_criteria
+from bayes_rr.study.data import read_study
+from bayes_rr.workflow.fit import fit_study
 
 HERE = Path(__file__).resolve().parent
 

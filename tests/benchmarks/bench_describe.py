@@ -34,7 +34,7 @@ def write_study(path: Path, appraisers: int, parts: int, trials: int, seed: int 
 
 def time_describe(path: Path) -> tuple[float, float]:
     """Seconds of the library call, and of the whole command in a new process."""
-    from bayes_rr.describe import describe_file
+    from bayes_rr.study.describe import describe_file
 
     start = time.perf_counter()
     describe_file(path)

@@ -53,8 +53,8 @@ def _folder_mb(folder: Path) -> float:
 
 
 def _write_sim_csv(path: Path, parts: int, appraisers: int, trials: int, seed: int) -> Path:
-    from bayes_rr.outputs import calls_table
-    from bayes_rr.simulate import simulate_crossed_logit
+    from bayes_rr.io.fit_folder import calls_table
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
 
     sim = simulate_crossed_logit(parts, appraisers, trials, mu=-0.5, sigma_part=2.0,
                                  sigma_appraiser=0.5, sigma_interaction=0.3, seed=seed)  # fmt: skip
@@ -99,11 +99,12 @@ def whole_fit(data: Path, model: str | None, repeats: int, work: Path) -> dict:
 
 def repeat_compile(repeats: int) -> float:
     """Compile seconds of a repeated fit of the same model and design in one process."""
-    from bayes_rr.data import read_study
-    from bayes_rr.describe import demo_path
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.spec import load_spec
+    from bayes_rr.core.distributions.spec import load_spec
+
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.study.data import read_study
+    from bayes_rr.study.describe import demo_path
+    from bayes_rr.workflow.fit import fit_study
 
     study = read_study(demo_path())
     spec = load_spec("crossed-logit")
@@ -116,10 +117,11 @@ def repeat_compile(repeats: int) -> float:
 
 def per_fit(model: str, studies: int) -> dict:
     """Seconds per fit of simulated studies of the demo's design (45 x 3 x 3) in one process."""
-    from bayes_rr.fit import fit_study
-    from bayes_rr.sampling import SamplerSettings
-    from bayes_rr.simulate import simulate_crossed_logit
-    from bayes_rr.spec import load_spec
+    from bayes_rr.core.distributions.spec import load_spec
+
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
+    from bayes_rr.workflow.fit import fit_study
 
     spec = load_spec(model)
     times, gates, draws = [], 0, []
@@ -146,7 +148,7 @@ def main() -> None:
     parser.add_argument("--large", action="store_true")
     args = parser.parse_args()
     warnings.filterwarnings("ignore")
-    from bayes_rr.describe import demo_path
+    from bayes_rr.study.describe import demo_path
 
     work = Path(tempfile.mkdtemp(prefix="bench-fit-"))
     # A compile cache of this run alone (the fit processes inherit it): the first,

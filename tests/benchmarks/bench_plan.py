@@ -19,13 +19,14 @@ TARGETS = {"beta-binomial": 1.0, "crossed-logit": 3.0}
 
 
 def measure(model: str, sims: int, seed: int) -> dict:
-    from bayes_rr.sampling import forget_compiled
+    from bayes_rr.core.distributions.spec import load_spec
+
+    from bayes_rr.inference.sampling import forget_compiled
     from bayes_rr.simulation.designs import Design
     from bayes_rr.simulation.plan import plan_task
     from bayes_rr.simulation.quick import simulation_settings
     from bayes_rr.simulation.seeds import derived_seed
     from bayes_rr.simulation.truths import simulate_design
-    from bayes_rr.spec import load_spec
 
     forget_compiled()
     spec = load_spec(model)

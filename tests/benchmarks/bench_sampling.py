@@ -40,7 +40,7 @@ HYPER = ("intercept", "sigma_part", "sigma_appraiser", "sigma_interaction")
 
 
 def _simulate(n_parts, n_appraisers, n_trials):
-    from bayes_rr.simulate import simulate_crossed_logit
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
 
     return simulate_crossed_logit(
         n_parts, n_appraisers, n_trials, mu=-0.5, sigma_part=2.0, sigma_appraiser=0.5,
@@ -51,7 +51,7 @@ def _simulate(n_parts, n_appraisers, n_trials):
 def _min_ess(posterior, study, spec) -> float:
     import arviz as az
 
-    from bayes_rr.estimands import compute_estimands
+    from bayes_rr.results.estimands import compute_estimands
 
     est = compute_estimands(posterior, spec, study, seed=1)
     study_level = est[[v for v in est.data_vars if "__study__" in v]]
@@ -65,9 +65,10 @@ def _min_ess(posterior, study, spec) -> float:
 
 
 def run_ours(study, spec_text=None, draws=None):
+    from bayes_rr.core.distributions.spec import load_spec, parse_spec
+
     from bayes_rr.families import build_model
-    from bayes_rr.sampling import SamplerSettings, sample_model
-    from bayes_rr.spec import load_spec, parse_spec
+    from bayes_rr.inference.sampling import SamplerSettings, sample_model
 
     spec = parse_spec(spec_text, "variant") if spec_text else load_spec("crossed-logit")
     start = time.perf_counter()
@@ -80,8 +81,7 @@ def run_ours(study, spec_text=None, draws=None):
 
 def run_baseline(study, draws: int = 1000):
     import pymc as pm
-
-    from bayes_rr.spec import load_spec
+    from bayes_rr.core.distributions.spec import load_spec
 
     calls = study.calls
     part_pos = {p: i for i, p in enumerate(study.parts)}

@@ -25,10 +25,10 @@ from scipy import stats
 
 def simuk_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
     import simuk
+    from bayes_rr.core.distributions.spec import load_spec
 
     from bayes_rr.families import build_model
     from bayes_rr.simulation.designs import Design, skeleton_study
-    from bayes_rr.spec import load_spec
 
     spec = load_spec("beta-binomial")
     model = build_model(spec, skeleton_study(Design(8, 3, 2), spec))
@@ -47,9 +47,10 @@ def simuk_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
 def our_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
     import json
 
+    from bayes_rr.core.distributions.spec import load_spec
+
     from bayes_rr.simulation.calibrate import CalibrationRequest, run_calibration
     from bayes_rr.simulation.designs import Design
-    from bayes_rr.spec import load_spec
 
     folder = Path(tempfile.mkdtemp()) / "calib"
     start = time.perf_counter()

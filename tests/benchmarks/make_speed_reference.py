@@ -12,10 +12,11 @@ import json
 import sys
 import warnings
 
-from bayes_rr.fit import fit_study
-from bayes_rr.sampling import SamplerSettings
-from bayes_rr.simulate import simulate_crossed_logit
-from bayes_rr.spec import load_spec
+from bayes_rr.core.distributions.spec import load_spec
+
+from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.simulation.known_truth import simulate_crossed_logit
+from bayes_rr.workflow.fit import fit_study
 
 FIELDS = ("key", "scope", "level", "appraiser", "mean", "median", "sd", "lower", "upper",
           "r_hat", "ess_bulk", "ess_tail")  # fmt: skip

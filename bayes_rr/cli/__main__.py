@@ -1,0 +1,3 @@
+from bayes_rr.cli import main
+
+main()

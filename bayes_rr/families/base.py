@@ -1,0 +1,188 @@
+"""The one interface every model family answers, and the pieces its answers share.
+
+The steps after sampling never branch on a family's name: they ask the family
+(:class:`Family`) for its defaults, its model, its prior draws, its call
+probabilities and estimands, its replicated calls and its hyper-parameters. This
+module never imports PyMC.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+import numpy as np
+import xarray as xr
+
+from bayes_rr.families.terms import UNCONSTRAINED, FamilyInfo
+
+if TYPE_CHECKING:
+    from bayes_rr.core.distributions import Prior
+    from bayes_rr.priors.spec import ModelSpec
+    from bayes_rr.study.data import StudyData
+
+
+@dataclass(frozen=True)
+class LatentDraws:
+    """Per-draw latent quantities of a fit, the input of every estimand.
+
+    ``p_study`` is None for a family without call probabilities per cell (latent
+    class: the class of a part is summed out); ``extra`` holds family-specific
+    estimands, ``(scope, level, key) -> (draws, dim or None)``; ``log_lik_dim`` is the
+    unit of the log likelihood (``cell``, or ``part`` when the likelihood does not
+    factor over a part's cells).
+    """
+
+    p_study: np.ndarray | None  # (S, part, appraiser)
+    population: dict[str, np.ndarray]  # per-part population decomposition, (S, part)
+    cell_log_lik: np.ndarray  # (S, cell or part): log P(calls | parameters), for LOO
+    extra: dict = field(default_factory=dict)
+    log_lik_dim: str = "cell"
+    q_study: np.ndarray | None = None
+    """1 - p_study computed without cancellation (expit(-eta), or from gamma variates),
+    so p(1 - p) stays positive where p rounds to 1; None: 1 - p_study is used."""
+
+
+@dataclass(frozen=True)
+class HyperParameter:
+    """A posterior variable whose prior the spec states.
+
+    ``status`` names the one element of a ``status`` dimension the prior is for
+    (status families state one intercept prior per status); ``None`` means the prior
+    applies to every element of the variable.
+    """
+
+    variable: str
+    location: tuple[str, ...]
+    prior: Prior
+    status: str | None = None
+
+    @property
+    def label(self) -> str:
+        return self.variable if self.status is None else f"{self.variable}[{self.status}]"
+
+    @property
+    def scale(self) -> str:
+        return UNCONSTRAINED[self.prior.support]
+
+
+Variables = dict[str, tuple[tuple[str, ...], np.ndarray]]
+"""Forward prior draws: name -> (dims after the draw axis, values (draws, ...))."""
+
+
+@dataclass(frozen=True)
+class Family:
+    """A model family: everything the steps before and after sampling ask of it.
+
+    ``build(spec, study)`` returns the PyMC model (PyMC is imported when it is
+    called); ``prior_draws(spec, study, rng, draws)`` draws the parameters forward in
+    numpy with the builder's names and dims; ``latent(posterior, spec, study, rng,
+    production)`` turns posterior draws into call probabilities and family-specific
+    estimands; ``cell_probabilities(posterior, spec, study, rng)`` gives the (S, cell)
+    call probabilities the predictive check replicates calls from;
+    ``hyper_parameters(spec)`` lists which variable carries which stated prior.
+    """
+
+    info: FamilyInfo
+    build: Callable
+    prior_draws: Callable[..., Variables]
+    latent: Callable[..., LatentDraws]
+    cell_probabilities: Callable[..., np.ndarray]
+    hyper_parameters: Callable[[ModelSpec], tuple[HyperParameter, ...]]
+    memory_per_draw: Callable[[int, int, int], int]
+    """Floats a draw needs at the fit's peak, from (parts, appraisers, cells)."""
+    per_status_scales: tuple[str, ...] = ()
+    """Variables with one stated prior but a value per status (separate earlier-study
+    factors per status)."""
+    appraiser_rows: bool = False
+    """Whether the study-scope call rate and repeatability of each appraiser are results
+    (appraisers identified across parts)."""
+    statements: tuple[str, ...] = ()
+    """The statement kinds of ``bayes-rr prior`` that this family takes."""
+    simulated: bool = False
+    """Whether studies can be simulated from the model (plan, calibrate)."""
+    simulated_with_reference: bool = False
+    """Whether simulated studies carry a reference status per part."""
+    default_plan_target: str = "study__study__reproducibility_variance"
+    takes_production: bool = False
+    """Whether a production distribution of the measured value turns into rates."""
+    model_notes: tuple[str, ...] = ()
+    """Sentences the report's model section adds about this family's assumptions."""
+    cautions: tuple[str, ...] = ()
+    """Items the report's cautions add for this family."""
+    identification_note: str | None = None
+    weak_identification: Callable[[xr.Dataset, float], str | None] | None = None
+
+    @property
+    def name(self) -> str:
+        return self.info.name
+
+
+# ---------------------------------------------------------------------------
+# pieces the families share
+
+
+def draws_of(posterior: xr.Dataset, name: str) -> np.ndarray:
+    """(S, ...) array of a posterior variable with chain and draw stacked."""
+    values = posterior[name].transpose("chain", "draw", ...).to_numpy()
+    return values.reshape((-1, *values.shape[2:]))
+
+
+def optional_draws(posterior: xr.Dataset, name: str, shape: tuple[int, ...]) -> np.ndarray:
+    """Like :func:`draws_of`, zeros of ``shape`` for a variable the model lacks."""
+    return draws_of(posterior, name) if name in posterior else np.zeros(shape)
+
+
+def term_hyper_parameters(spec: ModelSpec, scale_variables: dict[str, str] | None = None):
+    """The hyper-parameters of the spec's terms (group scales and fixed coefficients)."""
+    names = scale_variables or {}
+    out = []
+    for term in spec.terms:
+        if term.kind == "group":
+            variable = names.get(term.name, f"sigma_{term.name}")
+            out.append(HyperParameter(variable, ("terms", term.name, "scale_prior"), term.prior))
+        else:
+            out.append(
+                HyperParameter("reference_effect", ("terms", term.name, "prior"), term.prior)
+            )
+    return out
+
+
+def single_intercept(spec: ModelSpec) -> HyperParameter:
+    return HyperParameter("intercept", ("intercept", "prior"), spec.intercept)
+
+
+def status_intercept_hypers(spec: ModelSpec) -> list[HyperParameter]:
+    accept, reject = spec.status_intercepts
+    return [
+        HyperParameter("intercept", ("intercept", "accept_prior"), accept, "accept"),
+        HyperParameter("intercept", ("intercept", "reject_prior"), reject, "reject"),
+    ]
+
+
+def cell_index(study: StudyData) -> tuple[np.ndarray, np.ndarray]:
+    """Part and appraiser index of each observed cell."""
+    cells = study.cells
+    return cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
+
+
+def cell_memory(parts: int, appraisers: int, cells: int) -> int:
+    """Per draw: the parameters and their deterministic copies (about twice parts +
+    appraisers + cells), every per-part estimand in both scopes (about 20 per part), the
+    latent call probabilities and their temporaries (about 8 per part and appraiser) and
+    the cell log likelihood."""
+    return 2 * (parts + appraisers + cells) + 20 * parts + 8 * parts * appraisers + cells
+
+
+def part_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray:
+    """(S, part) logit of the call rate of each part for a typical appraiser, in the
+    families with one intercept: intercept + part effect (+ reference effect times the
+    reference status)."""
+    intercept = draws_of(posterior, "intercept")
+    s = intercept.shape[0]
+    shift = np.zeros((s, len(study.parts)))
+    if "reference_effect" in posterior and study.reference is not None:
+        beta = draws_of(posterior, "reference_effect")
+        shift = beta[:, None] * study.reference.to_numpy(dtype=float)[None, :]
+    return intercept[:, None] + optional_draws(posterior, "part_effect", shift.shape) + shift

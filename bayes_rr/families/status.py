@@ -1,0 +1,157 @@
+"""Pieces the two status families share (reference-logit and latent-class): the
+wrong-call rates of the statistical contract from call probabilities per status, the
+parameters per status as arrays, and their hyper-parameters. Never imports PyMC.
+
+The rates:
+
+* ``false_reject_rate``: P(reject call | the part's status is accept);
+* ``false_accept_rate``: P(accept call | the part's status is reject);
+* ``reference_agreement``: P(the call matches the part's status);
+
+per appraiser (level ``appraiser``) and for the system (level ``system``: the
+study's appraisers together, or a new appraiser), in scope ``study`` (the study's
+appraisers and the study's parts of that status) and ``population`` (a new part of
+that status; at level ``system`` also a new appraiser). With a known reference the
+study's parts of a status are known; in the latent class model each part counts
+with its posterior probability of being of that status in the draw.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+import xarray as xr
+
+from bayes_rr.families import forward
+from bayes_rr.families.base import (
+    draws_of,
+    optional_draws,
+    status_intercept_hypers,
+    term_hyper_parameters,
+)
+
+if TYPE_CHECKING:
+    from bayes_rr.priors.spec import ModelSpec
+    from bayes_rr.study.data import StudyData
+
+STATEMENTS = (
+    "false_reject_rate",
+    "false_accept_rate",
+    "appraiser_difference",
+    "repeat_disagreement",
+)
+"""The statement kinds of ``bayes-rr prior`` the status families take."""
+PER_STATUS_SCALES = ("sigma_appraiser",)
+"""Variables with one prior for both statuses but a value per status."""
+
+
+def study_rates(
+    p_if_accept: np.ndarray, p_if_reject: np.ndarray, reject_weight: np.ndarray
+) -> dict[str, dict[str, np.ndarray]]:
+    """Study-scope rates per appraiser and for the system.
+
+    ``p_if_accept``/``p_if_reject`` (S, part, appraiser): the call probability of each
+    part were it of that status; ``reject_weight`` (S, part): the part's probability
+    of being a reject part in the draw (0/1 with a known reference). Returns
+    ``{"appraiser": {key: (S, appraiser)}, "system": {key: (S,)}}``.
+    """
+    w1 = reject_weight[:, :, None]
+    w0 = 1.0 - w1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frr = (w0 * p_if_accept).sum(axis=1) / w0.sum(axis=1)
+        far = (w1 * (1.0 - p_if_reject)).sum(axis=1) / w1.sum(axis=1)
+    agree = (w0 * (1.0 - p_if_accept) + w1 * p_if_reject).mean(axis=1)
+    per_appraiser = {"false_reject_rate": frr, "false_accept_rate": far,
+                     "reference_agreement": agree}  # fmt: skip
+    return {
+        "appraiser": per_appraiser,
+        "system": {k: v.mean(axis=1) for k, v in per_appraiser.items()},
+    }
+
+
+def population_rates(
+    intercept: np.ndarray,
+    appraiser_effect: np.ndarray,
+    sigma_part: np.ndarray,
+    sigma_appraiser: np.ndarray,
+    sigma_interaction: np.ndarray,
+    reject_share: np.ndarray,
+) -> dict[str, dict[str, np.ndarray]]:
+    """Population-scope rates: a new part of each status (and, for the system, a new
+    appraiser), by Gauss-Hermite quadrature of the logistic-normal mean.
+
+    ``intercept`` (S, 2) per status (accept, reject); ``appraiser_effect`` (S, J, 2);
+    ``sigma_part``, ``sigma_interaction`` (S,); ``sigma_appraiser`` (S, 2);
+    ``reject_share`` (S,) or scalar: the share of reject parts that weighs the
+    agreement (the study's share with a reference, the prevalence without one).
+    """
+    from bayes_rr.core.moments import logistic_normal_moments
+
+    within = np.sqrt(sigma_part**2 + sigma_interaction**2)
+    q = np.broadcast_to(np.asarray(reject_share, dtype=float), intercept.shape[:1])
+    out: dict[str, dict[str, np.ndarray]] = {"appraiser": {}, "system": {}}
+    rate_if = {}
+    for status in (0, 1):
+        eta_j = intercept[:, status, None] + appraiser_effect[:, :, status]
+        rate_if[("appraiser", status)] = logistic_normal_moments(eta_j, within)[0]
+        total = np.sqrt(within**2 + sigma_appraiser[:, status] ** 2)
+        rate_if[("system", status)] = logistic_normal_moments(intercept[:, status], total)[0]
+    for level in ("appraiser", "system"):
+        frr = rate_if[(level, 0)]
+        far = 1.0 - rate_if[(level, 1)]
+        share = q[:, None] if level == "appraiser" else q
+        out[level] = {
+            "false_reject_rate": frr,
+            "false_accept_rate": far,
+            "reference_agreement": (1 - share) * (1 - frr) + share * (1 - far),
+        }
+    return out
+
+
+def rate_variables(rates: dict) -> dict:
+    """``{scope: {level: {key: draws}}}`` as estimand variables
+    ``(scope, level, key) -> (draws, dim or None)``."""
+    return {
+        (scope, level, key): (values, "appraiser" if level == "appraiser" else None)
+        for scope, levels in rates.items()
+        for level, keys in levels.items()
+        for key, values in keys.items()
+    }
+
+
+@dataclass(frozen=True)
+class StatusDraws:
+    """Per-draw parameters of a status model, as arrays (S = draws)."""
+
+    intercept: np.ndarray  # (S, 2)
+    part_effect: np.ndarray  # (S, part)
+    appraiser_effect: np.ndarray  # (S, appraiser, 2)
+    sigma_part: np.ndarray  # (S,)
+    sigma_appraiser: np.ndarray  # (S, 2)
+    sigma_interaction: np.ndarray  # (S,)
+
+
+def status_draws(posterior: xr.Dataset, study: StudyData) -> StatusDraws:
+    intercept = draws_of(posterior, "intercept")
+    s = intercept.shape[0]
+    n_parts, n_app = len(study.parts), len(study.appraisers)
+    return StatusDraws(
+        intercept,
+        optional_draws(posterior, "part_effect", (s, n_parts)),
+        optional_draws(posterior, "appraiser_effect", (s, n_app, 2)),
+        optional_draws(posterior, "sigma_part", (s,)),
+        optional_draws(posterior, "sigma_appraiser", (s, 2)),
+        optional_draws(posterior, "sigma_interaction", (s,)),
+    )
+
+
+
+
+def hyper_parameters(spec: ModelSpec):
+    return (*status_intercept_hypers(spec), *term_hyper_parameters(spec))
+
+
+def appraiser_prior_draws(spec: ModelSpec, study: StudyData, rng, draws: int) -> dict:
+    return forward.appraiser_by_status(spec, study, rng, draws)

@@ -1,0 +1,4 @@
+"""Sampling: the compile cache, the sampler and the convergence gate.
+
+May import: ``core``, ``study``, ``families``, ``priors``. The only place that samples.
+"""

@@ -1,0 +1,330 @@
+"""Sampling: the only module that runs a sampler, and the convergence gate.
+
+nutpie is the default sampler (it compiles the model with numba and adapts the
+mass matrix quickly); PyMC's NUTS is the fallback. The same seed, data and
+spec give the same draws.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import time
+from dataclasses import asdict, dataclass, field, replace
+
+import numpy as np
+import xarray as xr
+
+from bayes_rr.core.errors import SamplingError, SpecError
+from bayes_rr.families import family_of
+from bayes_rr.families.terms import SAMPLERS
+from bayes_rr.priors.spec import MAX_CHAINS, MAX_DRAWS, ModelSpec, SamplerDefaults
+
+MEMORY_SHARE = 0.4
+"""Share of the machine's memory a fit may plan to use (the rest is for the system,
+the sampler's own buffers and other jobs on a shared machine)."""
+R_HAT_MAX = 1.01
+ESS_MIN = 400
+BFMI_MIN = 0.3
+DIVERGENCE_SHARE_WARN = 0.001
+"""Up to this share of post-warm-up draws may diverge with a warning instead of a failure."""
+
+
+@dataclass(frozen=True)
+class SamplerSettings:
+    """Settings of one sampling run."""
+
+    # The spec's defaults are the one source of these five values.
+    sampler: str = SamplerDefaults.sampler
+    draws: int = SamplerDefaults.draws
+    tune: int = SamplerDefaults.tune
+    chains: int = SamplerDefaults.chains
+    target_accept: float = SamplerDefaults.target_accept
+    seed: int = 20240601
+    cores: int | None = None
+    progress: bool = False
+
+    def __post_init__(self) -> None:
+        if self.sampler not in SAMPLERS:
+            raise SpecError(f"sampler {self.sampler!r}: expected one of {list(SAMPLERS)}")
+        limits = (("draws", 10, MAX_DRAWS), ("tune", 1, MAX_DRAWS), ("chains", 1, MAX_CHAINS))
+        for key, least, most in limits:
+            value = getattr(self, key)
+            if isinstance(value, bool) or not isinstance(value, int) or not least <= value <= most:
+                raise SpecError(
+                    f"{key} = {value!r}: expected a whole number from {least} to {most:,}"
+                )
+        if (
+            isinstance(self.seed, bool)
+            or not isinstance(self.seed, int)
+            or not (0 <= self.seed < 2**32)
+        ):
+            raise SpecError(f"seed = {self.seed!r}: expected a whole number from 0 to 2**32 - 1")
+        if not 0.5 <= self.target_accept < 1:
+            raise SpecError(
+                f"target_accept = {self.target_accept!r}: expected a number in [0.5, 1)"
+            )
+
+    @classmethod
+    def from_spec(cls, spec: ModelSpec, **overrides) -> SamplerSettings:
+        """Spec defaults, overridden by the given non-None values."""
+        base = cls(**asdict(spec.sampler))
+        return replace(base, **{k: v for k, v in overrides.items() if v is not None})
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def machine_memory_bytes() -> int:
+    """Physical memory of this machine (a generous guess where the OS does not say)."""
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    except (ValueError, OSError, AttributeError):
+        return 16 * 2**30
+
+
+def planned_memory_bytes(
+    parts: int, appraisers: int, cells: int, settings: SamplerSettings, family: str = "logit"
+) -> int:
+    """A generous estimate of the memory a fit of this size needs at its peak.
+
+    The family says how many floats a draw needs (``Family.memory_per_draw``); doubled
+    for the copies made while summarising and writing. Measured peaks stay below it.
+    """
+    per_draw = family_of(family).memory_per_draw(parts, appraisers, cells)
+    return int(16 * per_draw * settings.draws * settings.chains)
+
+
+def check_memory(
+    parts: int, appraisers: int, cells: int, settings: SamplerSettings, family: str = "logit"
+) -> None:
+    """Refuse, before anything is compiled, a fit that would not fit in memory."""
+    need = planned_memory_bytes(parts, appraisers, cells, settings, family)
+    budget = MEMORY_SHARE * machine_memory_bytes()
+    if need > budget:
+        raise SpecError(
+            f"{settings.chains} chains x {settings.draws:,} draws of a study of {parts} parts x "
+            f"{appraisers} appraisers need about {need / 2**30:.1f} GiB, more than the "
+            f"{budget / 2**30:.1f} GiB budget ({MEMORY_SHARE:.0%} of this machine's memory); "
+            "use fewer --draws or --chains"
+        )
+
+
+@dataclass(frozen=True)
+class SampleRun:
+    """An InferenceData and how long each stage took (seconds)."""
+
+    idata: object
+    timings: dict = field(default_factory=dict)
+    compiled: object = None
+    """nutpie's compiled model, for another run of the same model without compiling."""
+    compile_source: str | None = None
+    """How the compiled model was obtained (:class:`bayes_rr.inference.compile_cache.CompileOutcome`);
+    None when it was given or the sampler compiles itself."""
+
+
+def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
+    """Sample ``model`` (the cell log likelihood is added by the estimands step).
+
+    Raises ``KeyboardInterrupt`` when a signal came during sampling, even where the
+    sampler caught it and returned the draws it had (nutpie and PyMC both do), and
+    :class:`SamplingError` for any sample shorter than asked for.
+    """
+    import pymc as pm
+
+    from bayes_rr.core import interrupts
+
+    timings = {}
+    compile_source = None
+    start = time.perf_counter()
+    if settings.sampler == "nutpie":
+        import nutpie
+
+        if compiled is None:
+            from bayes_rr.inference.compile_cache import compile_model
+
+            outcome = compile_model(model)
+            compiled, compile_source = outcome.compiled, outcome.source
+        timings["compile_s"] = time.perf_counter() - start
+        interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
+        start = time.perf_counter()
+        idata = nutpie.sample(
+            compiled,
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=settings.cores or min(settings.chains, 2),
+            seed=settings.seed,
+            target_accept=settings.target_accept,
+            progress_bar=settings.progress,
+            save_warmup=False,
+        )
+    else:
+        interrupts.checkpoint("sampling", f"{settings.chains} chains x {settings.draws} draws")
+        idata = pm.sample(
+            draws=settings.draws,
+            tune=settings.tune,
+            chains=settings.chains,
+            cores=settings.cores or min(settings.chains, 2),
+            random_seed=settings.seed,
+            target_accept=settings.target_accept,
+            progressbar=settings.progress,
+            compute_convergence_checks=False,
+            model=model,
+        )
+    timings["sample_s"] = time.perf_counter() - start
+    interrupts.raise_if_interrupted()
+    got = (idata.posterior.sizes.get("chain", 0), idata.posterior.sizes.get("draw", 0))
+    if got != (settings.chains, settings.draws):
+        raise SamplingError(
+            f"the sampler returned {got[0]} chains x {got[1]} draws instead of "
+            f"{settings.chains} x {settings.draws}; nothing was written; run the fit again"
+        )
+    return SampleRun(idata, timings, compiled, compile_source)
+
+
+# ---------------------------------------------------------------------------
+# compiled models reused within a process
+
+COMPILED_CACHE_SIZE = 8
+"""Compiled models kept per process: one per (spec, design) in a run of many fits."""
+_COMPILED: dict[str, object] = {}
+
+
+def design_key(spec: ModelSpec, study) -> str:
+    """Hash of everything a compiled model depends on except the reject counts: the
+    spec, the coords, each cell's indices and number of calls, the reference columns
+    and the limits. Two studies with the same key differ only in their calls."""
+    import hashlib
+
+    cells = study.cells
+    digest = hashlib.sha256()
+    digest.update(spec.sha256.encode())
+    digest.update(repr((study.parts, study.appraisers, study.limits)).encode())
+    for column in ("part_index", "appraiser_index", "n"):
+        digest.update(np.ascontiguousarray(cells[column].to_numpy(dtype=np.int64)).tobytes())
+    for extra in (study.reference, study.reference_value):
+        digest.update(b"-" if extra is None else extra.to_numpy(dtype=float).tobytes())
+    return digest.hexdigest()
+
+
+def cached_compiled(key: str, calls: np.ndarray):
+    """The compiled model of ``key`` with ``calls`` as its reject counts, or None."""
+    from bayes_rr.families.pymc_parts import OBSERVED_CALLS
+
+    compiled = _COMPILED.get(key)
+    if compiled is None:
+        return None
+    return compiled.with_data(**{OBSERVED_CALLS: calls})
+
+
+def remember_compiled(key: str, compiled) -> None:
+    """Keep a compiled model whose reject counts are replaceable (least recent out)."""
+    from bayes_rr.families.pymc_parts import OBSERVED_CALLS
+
+    if compiled is None or OBSERVED_CALLS not in getattr(compiled, "shared_data", {}):
+        return  # e.g. the latent class model, whose likelihood is built from the calls
+    _COMPILED.pop(key, None)
+    _COMPILED[key] = compiled
+    while len(_COMPILED) > COMPILED_CACHE_SIZE:
+        _COMPILED.pop(next(iter(_COMPILED)))
+
+
+def forget_compiled() -> None:
+    """Drop every compiled model of this process."""
+    _COMPILED.clear()
+
+
+# ---------------------------------------------------------------------------
+# convergence gate
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """Result of the convergence gate."""
+
+    ok: bool
+    divergences: int
+    draws: int
+    max_r_hat: float
+    min_ess_bulk: float
+    min_ess_tail: float
+    min_bfmi: float
+    reasons: tuple[str, ...]
+    warnings: tuple[str, ...]
+    advice: tuple[str, ...]
+    worst: dict
+
+    def as_dict(self) -> dict:
+        out = asdict(self)
+        for key in ("reasons", "warnings", "advice"):
+            out[key] = list(out[key])
+        out["thresholds"] = {
+            "r_hat_max": R_HAT_MAX,
+            "ess_min": ESS_MIN,
+            "bfmi_min": BFMI_MIN,
+            "divergence_share_with_warning": DIVERGENCE_SHARE_WARN,
+        }
+        return out
+
+
+def _extreme(rows, field: str, pick) -> tuple[float, str]:
+    values = [(getattr(r, field), r) for r in rows if math.isfinite(getattr(r, field))]
+    if not values:
+        return float("nan"), ""
+    value, row = pick(values, key=lambda item: item[0])
+    where = row.key if row.level == "parameter" else f"{row.scope} {row.level} {row.key}"
+    if row.part or row.appraiser:
+        where += f" ({row.part or row.appraiser})"
+    return float(value), where
+
+
+def convergence_gate(rows, sample_stats: xr.Dataset) -> Diagnostics:
+    """r_hat <= 1.01, bulk and tail ESS >= 400 on every summarised estimand and
+    hyper-parameter (``rows``: :class:`~bayes_rr.results.estimands.SummaryRow`), no divergences
+    beyond a small share (with a warning), E-BFMI >= 0.3 in every chain."""
+    max_rhat, rhat_at = _extreme(rows, "r_hat", max)
+    min_bulk, bulk_at = _extreme(rows, "ess_bulk", min)
+    min_tail, tail_at = _extreme(rows, "ess_tail", min)
+    diverging = sample_stats["diverging"].to_numpy().astype(bool)
+    divergences = int(diverging.sum())
+    n_draws = int(diverging.size)
+    energy = sample_stats["energy"].to_numpy()
+    bfmi = np.square(np.diff(energy, axis=1)).mean(axis=1) / np.var(energy, axis=1)
+    min_bfmi = float(bfmi.min())
+    reasons, warnings, advice = [], [], []
+    if not max_rhat <= R_HAT_MAX:
+        reasons.append(f"max r_hat {max_rhat:.3f} > {R_HAT_MAX} ({rhat_at})")
+    if not min_bulk >= ESS_MIN:
+        reasons.append(f"min bulk ESS {min_bulk:.0f} < {ESS_MIN} ({bulk_at})")
+    if not min_tail >= ESS_MIN:
+        reasons.append(f"min tail ESS {min_tail:.0f} < {ESS_MIN} ({tail_at})")
+    if divergences > DIVERGENCE_SHARE_WARN * n_draws:
+        reasons.append(f"{divergences} divergent transitions in {n_draws} draws")
+    elif divergences:
+        warnings.append(
+            f"{divergences} divergent transition(s) in {n_draws} draws (under "
+            f"{DIVERGENCE_SHARE_WARN:.1%}): results usable, but check the pair plots"
+        )
+    if not min_bfmi >= BFMI_MIN:
+        reasons.append(f"min E-BFMI {min_bfmi:.2f} < {BFMI_MIN}")
+    if reasons:
+        advice.append("run longer: more --tune and --draws (e.g. twice as many)")
+        if divergences:
+            advice.append("raise --target-accept (e.g. 0.95 or 0.99)")
+            advice.append("try another parameterization of the group terms in the model spec")
+        if min_bfmi < BFMI_MIN:
+            advice.append("use the noncentered parameterization for weakly informed terms")
+    return Diagnostics(
+        ok=not reasons,
+        divergences=divergences,
+        draws=n_draws,
+        max_r_hat=max_rhat,
+        min_ess_bulk=min_bulk,
+        min_ess_tail=min_tail,
+        min_bfmi=min_bfmi,
+        reasons=tuple(reasons),
+        warnings=tuple(warnings),
+        advice=tuple(advice),
+        worst={"r_hat": rhat_at, "ess_bulk": bulk_at, "ess_tail": tail_at},
+    )

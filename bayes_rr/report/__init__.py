@@ -1,0 +1,4 @@
+"""What a reader sees: figures and the self-contained HTML report.
+
+May import: ``core``, ``study``, ``families``, ``priors``, ``results``, ``checks``.
+"""

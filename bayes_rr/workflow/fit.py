@@ -1,0 +1,286 @@
+"""The fit step: spec + study -> model -> draws -> estimands -> gate -> summaries.
+
+:func:`fit_study` is what ``bayes-rr fit`` calls; it returns a
+:class:`FitResult` that :mod:`bayes_rr.io.fit_folder` writes to a folder.
+"""
+
+from __future__ import annotations
+
+import platform
+import sys
+import time
+from dataclasses import dataclass, replace
+from datetime import UTC, datetime
+from importlib import metadata
+
+import xarray as xr
+
+from bayes_rr import __version__
+from bayes_rr.core import DEFAULT_PROB, interrupts
+from bayes_rr.families import family_of
+from bayes_rr.inference.sampling import (
+    Diagnostics,
+    SamplerSettings,
+    cached_compiled,
+    check_memory,
+    convergence_gate,
+    design_key,
+    remember_compiled,
+    sample_model,
+)
+from bayes_rr.priors.spec import ModelSpec
+from bayes_rr.results.estimands import (
+    SummaryRow,
+    compute_estimands,
+    latent_draws,
+    log_likelihood_dataset,
+    summarize,
+)
+from bayes_rr.results.limitations import Limitation, design_limitations
+from bayes_rr.results.readings import (  # noqa: F401 (HYPER_PARAMETERS re-exported)
+    HYPER_PARAMETERS,
+    mark_limited,
+    plain_readings,
+    wrong_call_summary,
+)
+from bayes_rr.study.data import StudyData
+
+PACKAGES = ("pymc", "pytensor", "nutpie", "arviz", "numpy", "scipy", "pandas", "xarray")
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Everything a fit produced; nothing here is recomputed later."""
+
+    study: StudyData
+    spec: ModelSpec
+    settings: SamplerSettings
+    idata: object
+    estimands: xr.Dataset
+    diagnostics: Diagnostics
+    estimand_rows: tuple[SummaryRow, ...]
+    parameter_rows: tuple[SummaryRow, ...]
+    prob: float
+    interval: str
+    provenance: dict
+    limitations: tuple[Limitation, ...] = ()
+    wrong_calls: dict | None = None
+    """Rates in words, appraisers who stand out, and (latent class) identification;
+    None for a model without wrong-call rates."""
+    criteria: tuple[dict, ...] = ()
+    """Acceptance criteria with the probability that each is met (see decisions)."""
+    comparisons: dict | None = None
+    """The study's appraisers compared (see decisions.compare_appraisers)."""
+    prior_sensitivity: dict | None = None
+    """Power-scaling prior sensitivity of the study- and system-level results."""
+    prior_from: dict | None = None
+    """The earlier study carried in as prior and how well it was approximated."""
+
+
+def package_versions() -> dict[str, str]:
+    versions = {"python": sys.version.split()[0], "bayes_rr": __version__}
+    for name in PACKAGES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = "not installed"
+    return versions
+
+
+def _observed_groups(study: StudyData) -> tuple[xr.Dataset, xr.Dataset]:
+    cells = study.cells
+    labels = [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)]
+    coords = {"cell": labels}
+    observed = xr.Dataset({"s": ("cell", cells["s"].to_numpy())}, coords=coords)
+    constant = {
+        "n": ("cell", cells["n"].to_numpy()),
+        "part_index": ("cell", cells["part_index"].to_numpy()),
+        "appraiser_index": ("cell", cells["appraiser_index"].to_numpy()),
+        "cell_part": ("cell", cells["part"].to_numpy().astype(str)),
+        "cell_appraiser": ("cell", cells["appraiser"].to_numpy().astype(str)),
+    }
+    constant_ds = xr.Dataset(constant, coords=coords)
+    if study.reference is not None:
+        constant_ds["reference"] = xr.DataArray(
+            study.reference.to_numpy(), dims="part", coords={"part": list(study.parts)}
+        )
+    return observed, constant_ds
+
+
+def fit_study(
+    study: StudyData,
+    spec: ModelSpec,
+    settings: SamplerSettings,
+    *,
+    prob: float = DEFAULT_PROB,
+    interval: str = "eti",
+    production=None,
+    criteria: tuple = (),
+    prior_from: dict | None = None,
+    two_stage: bool = False,
+) -> FitResult:
+    """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
+
+    ``production`` (:class:`bayes_rr.families.curves.Production`, call curve family only) gives
+    the expected false reject and false accept rates in production. ``criteria``
+    (:class:`bayes_rr.results.decisions.Criterion`) are evaluated on the draws. ``prior_from``
+    (:func:`bayes_rr.priors.earlier.as_dict`) records the earlier study a spec carries.
+    ``two_stage`` samples FIRST_STAGE_DRAWS a chain first and ``settings.draws`` (the
+    cap) only when that sample fails the convergence gate; the gate is the same either
+    way, and the provenance records the draws used.
+
+    Refuses (``SpecError``) a run that would not fit in memory, before compiling.
+    An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
+    library cut short is never summarised.
+    """
+    from bayes_rr.families import build_model
+    from bayes_rr.families.pymc_parts import parameterizations
+
+    if production is not None and not family_of(spec).takes_production:
+        from bayes_rr.core.errors import SpecError
+
+        raise SpecError(
+            f"a production distribution is used by the call-curve model only, not by "
+            f"{spec.name!r}; leave out the production options"
+        )
+    check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings, spec.family)
+    if criteria:
+        from bayes_rr.results.decisions import check_keys
+
+        check_keys(criteria)
+    started = datetime.now(UTC)
+    interrupts.checkpoint("compiling", f"the {spec.name} model")
+    t0 = time.perf_counter()
+    # A study of a design compiled before in this process (many simulated studies,
+    # a batch of one station's files) only swaps its calls into that compiled model.
+    key = design_key(spec, study)
+    compiled = None
+    if settings.sampler == "nutpie":
+        compiled = cached_compiled(key, study.cells["s"].to_numpy())
+    reused = compiled is not None
+    model = None if reused else build_model(spec, study)
+    timings = {"build_s": time.perf_counter() - t0}
+    stages = [settings]
+    if two_stage and settings.draws > FIRST_STAGE_DRAWS:
+        stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
+    compile_source = "reused in this process" if reused else None
+    for number, stage in enumerate(stages, 1):
+        run = sample_model(model, stage, compiled)
+        compiled = run.compiled
+        compile_source = compile_source or run.compile_source
+        if not reused and stage.sampler == "nutpie":
+            remember_compiled(key, compiled)
+        for key, value in run.timings.items():
+            timings[key] = timings.get(key, 0.0) + value
+        summary = _summarise(run.idata, spec, study, stage, prob, interval, production)
+        for key, value in summary.timings.items():
+            timings[key] = timings.get(key, 0.0) + value
+        # The first stage's sample is kept when it passes the gate; otherwise the
+        # same compiled model runs again with the full number of draws.
+        if summary.diagnostics.ok or number == len(stages):
+            break
+    settings = stage
+    posterior, estimands, idata = summary.posterior, summary.estimands, summary.idata
+    limitations, estimand_rows = summary.limitations, summary.estimand_rows
+    parameter_rows, diagnostics = summary.parameter_rows, summary.diagnostics
+    t0 = time.perf_counter()
+    wrong_calls = wrong_call_summary(estimands, estimand_rows, spec, prob, diagnostics.ok)
+    from bayes_rr.results.decisions import compare_appraisers
+
+    comparisons = compare_appraisers(estimands, prob) if diagnostics.ok else None
+    from bayes_rr.priors.sensitivity import prior_sensitivity
+
+    sensitivity = prior_sensitivity(posterior, estimands, idata.log_likelihood, spec)
+    criteria_rows = ()
+    if criteria:
+        from bayes_rr.results.decisions import evaluate_criteria
+
+        criteria_rows = tuple(evaluate_criteria(criteria, estimands))
+    timings["summaries_s"] += time.perf_counter() - t0
+    provenance = {
+        "started": started.isoformat(),
+        "finished": datetime.now(UTC).isoformat(),
+        "data_sha256": study.sha256,
+        "data_source": study.source,
+        "spec_name": spec.name,
+        "spec_source": spec.source,
+        "spec_sha256": spec.sha256,
+        "spec_text": spec.text,
+        "parameterizations": parameterizations(spec, study),
+        "production": None if production is None else production.as_dict(),
+        "seed": settings.seed,
+        "sampler_settings": settings.as_dict(),
+        "compiled_model_reused": reused,
+        "compiled_model_source": compile_source,
+        "stages": [{"draws": stage.draws, "chains": stage.chains} for stage in stages[:number]],
+        "timings": timings,
+        "versions": package_versions(),
+        "platform": platform.platform(),
+    }
+    return FitResult(
+        study=study,
+        spec=spec,
+        settings=settings,
+        idata=idata,
+        estimands=estimands,
+        diagnostics=diagnostics,
+        estimand_rows=estimand_rows,
+        parameter_rows=parameter_rows,
+        prob=prob,
+        interval=interval,
+        provenance=provenance,
+        limitations=limitations,
+        wrong_calls=wrong_calls,
+        criteria=criteria_rows,
+        comparisons=comparisons,
+        prior_sensitivity=sensitivity,
+        prior_from=prior_from,
+    )
+
+
+FIRST_STAGE_DRAWS = 1000
+"""Draws a chain of a two-stage fit's first stage: enough for the gate's ESS of 400 in
+most studies (the demo's minimum bulk ESS at 4 x 1000 draws is about 700)."""
+
+
+@dataclass(frozen=True)
+class _Summarised:
+    posterior: xr.Dataset
+    estimands: xr.Dataset
+    idata: object
+    limitations: tuple
+    estimand_rows: tuple
+    parameter_rows: tuple
+    diagnostics: Diagnostics
+    timings: dict
+
+
+def _summarise(raw, spec, study, settings, prob, interval, production) -> _Summarised:
+    """Estimands, summary rows and the convergence gate of one sample."""
+    import arviz as az
+
+    interrupts.checkpoint("summarising")
+    # Keep the constrained parameters only: the sampler's unconstrained copies
+    # (``*_log__``) are an implementation detail.
+    posterior = raw.posterior[[v for v in raw.posterior.data_vars if not v.endswith("__")]]
+    t0 = time.perf_counter()
+    latent = latent_draws(posterior, spec, study, seed=settings.seed, production=production)
+    estimands = compute_estimands(posterior, spec, study, settings.seed, latent=latent)
+    observed, constant = _observed_groups(study)
+    idata = az.InferenceData(
+        posterior=posterior,
+        sample_stats=raw.sample_stats,
+        log_likelihood=log_likelihood_dataset(posterior, latent, study),
+        observed_data=observed,
+        constant_data=constant,
+    )
+    timings = {"estimands_s": time.perf_counter() - t0}
+    t0 = time.perf_counter()
+    hyper = posterior[[v for v in HYPER_PARAMETERS if v in posterior]]
+    limitations = tuple(design_limitations(study, spec))
+    estimand_rows = tuple(mark_limited(summarize(estimands, prob, interval), limitations))
+    parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
+    diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
+    timings["summaries_s"] = time.perf_counter() - t0
+    return _Summarised(posterior, estimands, idata, limitations, estimand_rows,
+                       parameter_rows, diagnostics, timings)  # fmt: skip
