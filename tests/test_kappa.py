@@ -5,7 +5,7 @@ import pytest
 from statsmodels.stats.inter_rater import aggregate_raters, cohens_kappa
 from statsmodels.stats.inter_rater import fleiss_kappa as sm_fleiss_kappa
 
-from bayes_rr.study.classical import cohen_kappa, fleiss_kappa
+from bayes_rr.study.kappa import cohen_kappa, fleiss_kappa
 
 # Fleiss (1971), Psychological Bulletin 76:378-382: 30 patients x 6 psychiatrists x
 # 5 diagnoses, as the `diagnoses` array of statsmodels' test file
@@ -155,7 +155,7 @@ def _relabel_trials(study, seed: int):
 def test_cohen_pairs_do_not_depend_on_trial_labels(seed):
     """Property: relabelling trials within cells leaves every pair's kappa unchanged
     (trial-matched pairing moved it from 0.20 to 0.50 on one study)."""
-    from bayes_rr.study.classical import kappas
+    from bayes_rr.study.kappa import kappas
 
     study = _study(seed)
     before = {
@@ -172,7 +172,7 @@ def test_cohen_pairs_do_not_depend_on_trial_labels(seed):
 def test_cohen_pairs_with_one_trial_match_statsmodels():
     """One trial each: the all-pairings table is the table of paired calls
     (statsmodels.stats.inter_rater.cohens_kappa)."""
-    from bayes_rr.study.classical import kappas
+    from bayes_rr.study.kappa import kappas
 
     study = _study(5, trials=1)
     wide = study.calls.pivot_table(index="part", columns="appraiser", values="call")
@@ -192,7 +192,7 @@ def test_fleiss_bootstrap_interval_matches_a_plain_bootstrap():
     """Our vectorised bootstrap over parts against a loop over resampled tables scored
     by statsmodels.stats.inter_rater.fleiss_kappa (two Monte Carlo runs: agree within
     0.03)."""
-    from bayes_rr.study.classical import fleiss_kappa
+    from bayes_rr.study.kappa import fleiss_kappa
 
     study = _study(6)
     per_part = study.cells.groupby("part")[["n", "s"]].sum()
@@ -213,7 +213,7 @@ def test_fleiss_bootstrap_interval_matches_a_plain_bootstrap():
 def test_cohen_pair_bootstrap_interval_matches_a_plain_bootstrap():
     """Bootstrap over parts of the all-pairings kappa, against a loop that rebuilds the
     table from resampled parts and scores it with statsmodels' cohens_kappa."""
-    from bayes_rr.study.classical import cohen_kappa_pairs, pair_tables
+    from bayes_rr.study.kappa import cohen_kappa_pairs, pair_tables
 
     study = _study(7)
     per_part = pair_tables(study.cells, "A1", "A2")

@@ -8,8 +8,9 @@ from bayes_rr.cli import app
 from bayes_rr.core.errors import SpecError
 from bayes_rr.inference.sampling import SamplerSettings, check_memory, planned_memory_bytes
 from bayes_rr.priors.spec import load_spec, models_dir, parse_spec
-from bayes_rr.study.classical import MAX_PAIRWISE_APPRAISERS, classical_statistics
+from bayes_rr.study.classical import classical_statistics
 from bayes_rr.study.data import study_from_cells
+from bayes_rr.study.kappa import MAX_PAIRWISE_APPRAISERS
 
 runner = CliRunner()
 STUDY = "part,appraiser,trial,call\n1,A,1,pass\n1,A,2,fail\n1,B,1,pass\n2,A,1,fail\n2,B,1,fail\n"

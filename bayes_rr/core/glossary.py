@@ -80,3 +80,9 @@ def as_dict() -> dict:
         "results": {k: {"name": n, "meaning": m} for k, (n, m) in GLOSSARY.items()},
         "scopes": dict(SCOPES),
     }
+
+
+def result_label(variable: str) -> str:
+    """``study__study__repeatability_variance`` -> "repeatability variance (study)"."""
+    scope, _, key = variable.split("__")
+    return f"{name(key)} ({scope})"

@@ -160,7 +160,7 @@ def batch_html(table, failures: list[dict], generator: str, prob: float) -> str:
     """A one-page report: the table across the studies and the files that failed."""
     from html import escape
 
-    from bayes_rr.report.html import CAUTIONS
+    from bayes_rr.report.blocks import CAUTIONS
 
     head = (f'<!doctype html><html lang="en"><head><meta charset="utf-8">'
             f'<meta name="generator" content="{escape(generator)}">'

@@ -24,7 +24,7 @@ def width_figure(rows: list[dict], prob: float) -> bytes:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from bayes_rr.simulation.plan import result_label
+    from bayes_rr.core.glossary import result_label
 
     keys = [k for k in dict.fromkeys(k for r in rows for k in r["expected_width"])]
     cols = min(3, max(1, len(keys)))
@@ -68,7 +68,7 @@ def ecdf_difference_figure(ranks: dict[str, np.ndarray], prob: float = 0.95) -> 
     import matplotlib.pyplot as plt
     from arviz.stats.ecdf_utils import ecdf_confidence_band
 
-    from bayes_rr.simulation.plan import result_label
+    from bayes_rr.core.glossary import result_label
 
     names = list(ranks)
     cols = min(4, max(1, len(names)))

@@ -12,6 +12,7 @@ import numpy as np
 
 from bayes_rr.core import DEFAULT_PROB
 from bayes_rr.core.errors import SpecError
+from bayes_rr.core.glossary import result_label
 from bayes_rr.families import family_of
 from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import Design, check_simulated
@@ -151,14 +152,6 @@ def _summarise_design(design: Design, results: list[dict], failures: int, reache
         "seconds_per_fit": float(np.median([r["seconds"] for r in results])) if results
         else None,
     }  # fmt: skip
-
-
-def result_label(variable: str) -> str:
-    """``study__study__repeatability_variance`` -> "repeatability variance (study)"."""
-    from bayes_rr.core.glossary import name
-
-    scope, _, key = variable.split("__")
-    return f"{name(key)} ({scope})"
 
 
 def recommendation(rows: list[dict], request: PlanRequest, key: str) -> str:

@@ -1,0 +1,382 @@
+"""What the commands print: the study, the fit, the rates, the criteria and the checks,
+as tables that never cut a value (at any width, and piped)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table
+
+from bayes_rr.cli.shell import _num, err, out
+
+
+def print_description(result: dict) -> None:
+    """Terminal tables of the design and the classical statistics."""
+    from bayes_rr.study.describe import reference_rows
+
+    design = result["design"]
+    prob = result["prob"]
+    table = Table(title=f"Study design: {design['source']}", show_header=False)
+    for label, key in (
+        ("parts", "parts"),
+        ("appraisers", "appraisers"),
+        ("calls", "calls"),
+        ("reject calls", "reject_calls"),
+        ("trials per cell (min-max)", None),
+        ("empty part x appraiser cells", "empty_cells"),
+        ("reference status given", "has_reference"),
+        ("data SHA-256", "data_sha256"),
+    ):
+        value = (
+            f"{design['trials_per_cell_min']}-{design['trials_per_cell_max']}"
+            if key is None
+            else design[key]
+        )
+        table.add_row(label, str(value))
+        if key == "has_reference":
+            for row_label, text in reference_rows(design):
+                table.add_row(row_label, text)
+    out.print(table)
+    for note in design["notes"]:
+        out.print(f"note: {note}")
+
+    plug = result["classical"]["plug_in"]["study"]
+    corr = result["classical"]["corrected"]["study"]
+    table = Table(title="Moment estimates, averaged over the study's parts")
+    table.add_column("quantity")
+    table.add_column("plug-in", justify="right")
+    table.add_column("corrected n/(n-1)", justify="right")
+    from bayes_rr.core import glossary
+
+    for key in (
+        "rr_variance",
+        "repeatability_variance",
+        "reproducibility_variance",
+        "reproducibility_share",
+        "repeat_disagreement",
+    ):
+        table.add_row(glossary.name(key), _num(plug[key], 4), _num(corr[key], 4))
+    out.print(table)
+    for flag in result["classical"]["corrected"]["flags"]:
+        out.print(f"flag: {flag}")
+
+    _print_classical_by_appraiser(result, prob)
+    for item in result["not_computed"]:
+        out.print(f"not computed: {item['statistic']}: {item['reason']}")
+
+
+def _share_text(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    wilson = next((i for i in row["intervals"] if i["method"].startswith("Wilson")),
+                  row["intervals"][0])  # fmt: skip
+    share = row.get("share", row.get("rate"))
+    return f"{share:.0%}\n{wilson['lower']:.0%}-{wilson['upper']:.0%}"
+
+
+def _kappa_text(row: dict | None) -> str:
+    if row is None:
+        return "-"
+    lower, upper = row.get("lower"), row.get("upper")
+    interval = "" if lower is None or upper is None else f"\n{lower:.2f} to {upper:.2f}"
+    return f"{row['kappa']:.2f}{interval}"
+
+
+def _print_classical_by_appraiser(result: dict, prob: float) -> None:
+    """The classical agreement figures, one row per appraiser (the report's layout)."""
+    from bayes_rr.study.classical import by_appraiser
+
+    rows = by_appraiser(result)
+    table = Table(
+        title="Each appraiser's own consistency",
+        caption=f"shares with {prob:.0%} Wilson intervals; kappa with a {prob:.0%} bootstrap "
+        "interval over parts (null SEs and z: --json)",
+    )
+    for name in ("appraiser", "parts called alike on every own trial", "kappa of own trials"):
+        table.add_column(name, justify="left" if name == "appraiser" else "right")
+    for item in rows:
+        table.add_row(item["appraiser"] or "all together", _share_text(item["own"]),
+                      _kappa_text(item["own_kappa"]))  # fmt: skip
+    out.print(table)
+    if any(item["reference"] for item in rows):
+        table = Table(
+            title="Each appraiser against the reference",
+            caption="error rates count calls, treating them as independent",
+        )
+        for name in ("appraiser", "parts matching on every trial", "kappa",
+                     "false reject rate", "false accept rate"):  # fmt: skip
+            table.add_column(name, justify="left" if name == "appraiser" else "right")
+        for item in rows:
+            table.add_row(item["appraiser"] or "all together", _share_text(item["reference"]),
+                          _kappa_text(item["reference_kappa"]),
+                          _share_text(item["false_reject_rate"]),
+                          _share_text(item["false_accept_rate"]))  # fmt: skip
+        out.print(table)
+    kappas = {(r["appraiser"], r["other"]): r for r in result["kappa"]
+              if r["kind"] == "appraiser_pair"}  # fmt: skip
+    if result["appraiser_differences"] or kappas:
+        table = Table(
+            title="Pairs of appraisers",
+            caption="Cohen's kappa pairs every call of one with every call of the other on "
+            "a part; the difference of call rates with Newcombe's interval",
+        )
+        for name in ("pair", "Cohen's kappa", "difference of call rates"):
+            table.add_column(name, justify="left" if name == "pair" else "right")
+        for row in result["appraiser_differences"]:
+            newcombe = row["intervals"][0]
+            table.add_row(
+                f"{row['appraiser']} and {row['other']}",
+                _kappa_text(kappas.get((row["appraiser"], row["other"]))),
+                f"{row['difference']:+.3f}\n{newcombe['lower']:+.3f} to {newcombe['upper']:+.3f}",
+            )
+        out.print(table)
+
+
+def print_fit(summary: dict, classical: dict | None) -> None:
+    """Study-level table, plain readings and the classical estimates beside the posterior.
+
+    A fit that failed the convergence gate prints why and what to do, and no result
+    numbers; results the design cannot inform are marked instead of printed.
+    """
+    diag = summary["diagnostics"]
+    if not diag["ok"]:
+        out.print("NOT CONVERGED: no results are shown, and those written must not be used.",
+                  style="bold red")  # fmt: skip
+        for reason in diag["reasons"]:
+            out.print(f"  reason: {reason}")
+        for advice in diag["advice"]:
+            out.print(f"  advice: {advice}")
+        return
+    for warning in diag["warnings"]:
+        out.print(f"warning: {warning}")
+    prob = summary["prob"]
+    kind = "HDI" if summary["interval"] == "hdi" else "equal-tailed"
+    if summary.get("wrong_calls"):
+        print_rates(summary)
+    if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
+        print_curves(summary)
+    if not any(r["level"] == "study" and r["key"] == "rr_variance" for r in summary["estimands"]):
+        _print_footer(summary, diag)
+        return
+    table = Table(
+        title=f"Study level, model {summary['model']['name']}",
+        caption=f"posterior mean, then its {prob:.0%} {kind} interval; classical: the "
+        "corrected moment estimate, the plug-in one in brackets",
+    )
+    table.add_column("quantity")
+    table.add_column("the study's appraisers", justify="right")
+    table.add_column("a new appraiser", justify="right")
+    from bayes_rr.core import glossary
+
+    table.add_column("classical", justify="right")
+    rows = {(r["key"], r["scope"]): r for r in summary["estimands"] if r["level"] == "study"}
+    plug = (classical or {}).get("classical", {}).get("plug_in", {}).get("study", {})
+    corr = (classical or {}).get("classical", {}).get("corrected", {}).get("study", {})
+
+    def cell(key: str, scope: str) -> str:
+        row = rows.get((key, scope))
+        if row is None or row["mean"] is None:
+            return "-"
+        note = row.get("note") or ""
+        # Short words that fit a narrow column; the notes below the table say why.
+        if note.startswith("set by the prior"):
+            return "prior only"
+        if note.startswith("fixed by construction"):
+            return "by design"
+        # mean above its interval: the columns stay narrow enough for 80 columns
+        return f"{row['mean']:.4f}\n{row['lower']:.4f}-{row['upper']:.4f}"
+
+    for key in (
+        "rr_variance",
+        "repeatability_variance",
+        "reproducibility_variance",
+        "reproducibility_share",
+        "repeat_disagreement",
+        "cross_disagreement",
+        "appraiser_bias_variance",
+        "interaction_variance",
+    ):
+        if (key, "study") not in rows and (key, "population") not in rows:
+            continue
+        table.add_row(
+            glossary.name(key),
+            cell(key, "study"),
+            cell(key, "population"),
+            f"{_num(corr.get(key), 4)}\n({_num(plug.get(key), 4)})" if key in corr else "-",
+        )
+    out.print(table)
+    for sentence in summary["readings"]:
+        out.print(sentence)
+    _print_footer(summary, diag)
+
+
+def print_criteria(summary: dict) -> None:
+    for row in summary.get("criteria", []):
+        out.print(f"criterion: {row['sentence']}", style=None if row["met"] else "bold")
+
+
+def _print_footer(summary: dict, diag: dict) -> None:
+    print_criteria(summary)
+    for sentence in (summary.get("comparisons") or {}).get("sentences", []):
+        out.print(f"appraisers: {sentence}")
+    for limitation in summary.get("limitations", []):
+        out.print(f"note: {limitation['sentence']}")
+    from bayes_rr.priors.sensitivity import HEADLINE_KEYS, sentences
+
+    earlier = summary.get("prior_from")
+    block = summary.get("prior_sensitivity") or {}
+    for sentence in sentences(block, bool(earlier), HEADLINE_KEYS):
+        out.print(f"prior: {sentence}")
+    if earlier:
+        out.print(f"earlier study: {earlier_sentence(earlier)}")
+    out.print(
+        f"r_hat max {diag['max_r_hat']:.3f}, ESS min bulk {diag['min_ess_bulk']:.0f} / "
+        f"tail {diag['min_ess_tail']:.0f}, divergences {diag['divergences']}, "
+        f"E-BFMI min {diag['min_bfmi']:.2f}"
+    )
+
+
+def earlier_sentence(block: dict) -> str:
+    """The earlier study carried in, and how closely its approximation follows it."""
+    rows = block["parameters"]
+    carried = [r for r in rows if r["carried"]]
+    text = (
+        f"the fit {block['fit']} carried in as prior with weight {block['weight']:g}; "
+        f"{len(carried)} of {len(rows)} hyper-parameters carried"
+    )
+    if rows:
+        worst = max(rows, key=lambda r: r["quantile_gap"])
+        text += (
+            f"; the approximation's largest quantile gap is {worst['quantile_gap']:.3f} "
+            f"({worst['label']})"
+        )
+    return text + "."
+
+
+def _percent_interval(row: dict | None) -> str:
+    if row is None or row["mean"] is None:
+        return "-"
+    return f"{row['mean']:.1%} ({row['lower']:.1%}-{row['upper']:.1%})"
+
+
+def _value(row: dict | None) -> str:
+    if row is None or row["mean"] is None:
+        return "-"
+    return f"{row['mean']:.4g} ({row['lower']:.4g} to {row['upper']:.4g})"
+
+
+def print_curves(summary: dict) -> None:
+    """Each appraiser's effective limit(s) and transition width (call-curve model)."""
+    rows = {(r["key"], r["scope"], r["level"], r["appraiser"]): r for r in summary["estimands"]}
+    keys = sorted({r["key"] for r in summary["estimands"] if r["key"].startswith("effective")})
+    table = Table(title="Where each appraiser puts the limit (units of the reference value)")
+    table.add_column("appraiser")
+    for key in keys:
+        table.add_column(key.replace("_", " ").replace("[side=", " (").replace("]", ")"))
+    table.add_column("transition width")
+    for name in summary["design"]["appraiser_names"]:
+        table.add_row(
+            name,
+            *(_value(rows.get((key, "study", "appraiser", name))) for key in keys),
+            _value(rows.get(("transition_width", "study", "appraiser", name))),
+        )
+    out.print(table)
+    for key in keys:
+        spread = rows.get((key.replace("effective_limit", "limit_spread"), "study", "system", None))
+        if spread is not None:
+            out.print(f"spread of the effective limits over these appraisers: {_value(spread)}")
+
+
+def print_rates(summary: dict) -> None:
+    """The wrong-call rates first: in words, then per appraiser and for the system."""
+    wrong = summary["wrong_calls"]
+    if wrong.get("weak_identification"):
+        out.print(f"warning: {wrong['weak_identification']}", style="bold")
+    for sentence in wrong["readings"]:
+        out.print(sentence)
+    rows = {
+        (r["key"], r["scope"], r["level"], r["appraiser"]): r
+        for r in summary["estimands"]
+        if r["level"] in ("appraiser", "system")
+    }
+    prob = summary["prob"]
+    columns = [
+        (key, label)
+        for key, label in (("false_reject_rate", "false reject rate"),
+                           ("false_accept_rate", "false accept rate"),
+                           ("reference_agreement", "agreement with status"))
+        if any(k[0] == key for k in rows)
+    ]  # fmt: skip
+    kind = "highest density" if summary["interval"] == "hdi" else "equal-tailed"
+    table = Table(title=f"Wrong calls, study's parts ({prob:.0%} {kind} intervals)")
+    table.add_column("appraiser")
+    for _, label in columns:
+        table.add_column(label, justify="right")
+    lines = [(name or "all appraisers", "study", "appraiser" if name else "system", name)
+             for name in [*summary["design"]["appraiser_names"], None]]  # fmt: skip
+    lines.append(("a new appraiser", "population", "system", None))
+    for label, scope, level, name in lines:
+        cells = [_percent_interval(rows.get((key, scope, level, name))) for key, _ in columns]
+        if any(cell != "-" for cell in cells):  # a model may give no population rates
+            table.add_row(label, *cells)
+    out.print(table)
+
+
+def _short_number(x: float) -> str:
+    """Counts as integers, other values to three significant digits."""
+    return str(int(x)) if float(x).is_integer() else f"{x:.3g}"
+
+
+def print_checks(document: dict) -> None:
+    ppc = document["posterior_predictive"]
+    table = Table(
+        title=f"Posterior predictive check ({ppc['draws']} replicated studies)",
+        caption=f"* flagged: {ppc['flag_when']}",
+    )
+    # the statistic's name (an appraiser's in brackets) must stay readable at 80 columns
+    table.add_column("statistic", no_wrap=True, min_width=24)
+    table.add_column("observed", no_wrap=True)
+    table.add_column("replicated mean (95%)", no_wrap=True)
+    table.add_column("p", no_wrap=True)
+    for stat in ppc["statistics"]:
+        table.add_row(
+            stat["name"],
+            _short_number(stat["observed"]),
+            f"{_short_number(stat['replicated_mean'])} ({_short_number(stat['replicated_lower'])}"
+            f"-{_short_number(stat['replicated_upper'])})",
+            f"{stat['p_value']:.3f}" + (" *" if stat["flagged"] else ""),
+        )
+    out.print(table)
+    prior = document.get("prior_predictive") or []
+    if prior:
+        before = Table(
+            title="Prior predictive check: what the priors alone imply for this design",
+            caption="prior draws before the calls are seen; a prior range much wider than "
+            "the posterior interval means the data, not the priors, decide",
+        )
+        for name in ("quantity", "scope", "prior median", "prior 95% range"):
+            before.add_column(name, justify="left" if name in ("quantity", "scope") else "right")
+        for row in prior:
+            before.add_row(row["key"].replace("_", " "), row["scope"], f"{row['median']:.3f}",
+                           f"{row['q025']:.3f} to {row['q975']:.3f}")  # fmt: skip
+        out.print(before)
+    flagged = ppc["flagged"]
+    out.print(ppc["verdict"][0].upper() + ppc["verdict"][1:] + ".")
+    if flagged:
+        out.print(f"flagged: {', '.join(flagged)}")
+    if not document["converged"]:
+        out.print("The fit did not pass the convergence gate: these checks are of a posterior "
+                  "that must not be used.", style="bold red")  # fmt: skip
+
+
+FitDir = Annotated[Path, typer.Argument(help="A folder written by 'bayes-rr fit'.")]
+
+
+def _print_failures(failures: list[dict]) -> None:
+    for failure in failures[:10]:
+        given = ", ".join(f"{k} {v}" for k, v in failure["input"].items())
+        err.print(f"failed: {failure['task']} ({given}): {failure['error']}", soft_wrap=True)
+    if len(failures) > 10:
+        err.print(f"... and {len(failures) - 10} more (see the run folder's tasks/*.failed.json)")
