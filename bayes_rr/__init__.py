@@ -1,7 +1,19 @@
 """Bayesian analysis of pass/fail (attribute) inspection studies.
 
-Importing the package is cheap: PyMC, nutpie and matplotlib are imported only
-by the modules that need them, when they are first used.
+The Python face::
+
+    import bayes_rr as brr
+
+    study = brr.read_study(frame, part="Part", appraiser="Inspector", call="Result")
+    brr.describe(study)
+    fit = brr.fit(study, seed=1)
+    fit.summary()        # a tidy pandas DataFrame of every result
+    fit.rates()          # false reject and false accept rates (models with a reference)
+    fit.posterior        # ArviZ InferenceData
+    fit.report("report.html")
+
+Importing the package is cheap: PyMC, nutpie and matplotlib are imported only by the
+modules that need them, when they are first used; the face itself loads on first use.
 """
 
 import warnings
@@ -13,6 +25,22 @@ __version__ = "0.1.0"
 # import itself, so only that one notice is silenced.
 warnings.filterwarnings("ignore", message=r"\s*ArviZ is undergoing", category=FutureWarning)
 
-from bayes_rr.core import DEFAULT_PROB
+DEFAULT_PROB = 0.95
+"""Default probability of every interval in the project (``bayes_rr.core.DEFAULT_PROB``)."""
 
-__all__ = ["DEFAULT_PROB", "__version__"]
+FACE = ("Description", "Fit", "calibrate", "describe", "fit", "load", "plan", "read_study")
+__all__ = ["DEFAULT_PROB", "__version__", *FACE]
+
+
+def __getattr__(name: str):
+    # The face loads on first use, so `import bayes_rr` imports neither pandas-heavy
+    # reading code nor PyMC.
+    if name in FACE:
+        from bayes_rr import api
+
+        return getattr(api, name)
+    raise AttributeError(f"module 'bayes_rr' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted([*globals(), *FACE])

@@ -1,39 +1,42 @@
 """The whole job from Python, on the bundled demo study (invented data).
 
 Run from anywhere after `pip install .`:  python examples/analyse_demo.py [OUT_DIR]
+(or paste the lines of main() into a notebook cell by cell).
 """
 
 import sys
 from pathlib import Path
 
-from bayes_rr.inference.sampling import SamplerSettings
-from bayes_rr.io.fit_folder import write_fit
-from bayes_rr.priors.spec import load_spec
-from bayes_rr.study.classical import classical_statistics
-from bayes_rr.study.data import read_study
+import pandas as pd
+
+import bayes_rr as brr
 from bayes_rr.study.describe import demo_path
-from bayes_rr.workflow.fit import fit_study
-from bayes_rr.workflow.steps import check_fit, report_fit
 
 
-def main(out_dir: Path) -> None:
-    study = read_study(demo_path())
-    print(study.design())
+def main(out_dir: Path, draws: int | None = None) -> None:
+    # A DataFrame as a notebook user would have it (the demo file has comment lines).
+    frame = pd.read_csv(demo_path(), comment="#")
+    study = brr.read_study(frame, part="part", appraiser="appraiser", call="call",
+                           reference="reference")  # fmt: skip
 
-    classical = classical_statistics(study)
-    print("classical (corrected) study level:", classical.corrected.study)
+    description = brr.describe(study)
+    print(description.by_appraiser().round(3).to_string(index=False))
 
-    spec = load_spec("crossed-logit")
-    result = fit_study(study, spec, SamplerSettings.from_spec(spec, seed=1))
-    print("converged:", result.diagnostics.ok, result.diagnostics.reasons)
-    for row in result.estimand_rows:
-        if row.level == "study" and row.key in ("repeat_disagreement", "reproducibility_share"):
-            print(f"{row.scope:10s} {row.key:22s} {row.mean:.3f} ({row.lower:.3f}-{row.upper:.3f})")
+    fit = brr.fit(study, seed=1, draws=draws)  # the data have a reference: reference-logit
+    print(fit)
+    summary = fit.summary()
+    headline = summary[(summary["level"] == "study") & summary["key"].isin(
+        ["repeat_disagreement", "reproducibility_share"])]  # fmt: skip
+    print(headline[["key", "scope", "mean", "lower", "upper"]].round(3).to_string(index=False))
+    rates = fit.rates()
+    columns = ["key", "scope", "appraiser", "mean", "lower", "upper"]
+    print(rates[rates["level"] == "appraiser"][columns].round(3).to_string(index=False))
 
-    folder = write_fit(result, out_dir / "fit", overwrite=True)
-    checks = check_fit(folder)
-    print("posterior predictive check:", checks["posterior_predictive"]["verdict"])
-    print("report:", report_fit(folder, title="Demo study (invented data)"))
+    print("posterior predictive check:", fit.check()["posterior_predictive"]["verdict"])
+    folder = fit.save(out_dir / "fit", overwrite=True)
+    print("fit folder:", folder)
+    print("report:", fit.report(out_dir / "report.html", title="Demo study (invented data)",
+                                overwrite=True))  # fmt: skip
 
 
 if __name__ == "__main__":

@@ -73,6 +73,8 @@ def _imports(name: str, path: Path) -> set[str]:
                 parts = package.split(".")[: len(package.split(".")) - node.level + 1]
                 base = ".".join([*parts, base] if base else parts)
             for alias in node.names:
+                if base == "bayes_rr" and alias.name == "__version__":
+                    continue  # a constant the root defines before it imports anything
                 # ``from pkg import module`` depends on the module, not on pkg's __init__
                 sub = f"{base}.{alias.name}"
                 found.add(sub if sub in MODULES else base)
@@ -111,6 +113,8 @@ def test_no_room_imports_a_room_above_it():
 
 def test_nothing_but_the_face_imports_the_package_root_beyond_its_version():
     for name, path in MODULES.items():
+        if name == "bayes_rr":
+            continue  # the root loads the face (``api``) on first use
         tree = ast.parse(path.read_text(encoding="utf-8"))
         for node in ast.walk(tree):
             if isinstance(node, ast.ImportFrom) and node.module == "bayes_rr" and not node.level:

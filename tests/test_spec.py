@@ -111,7 +111,8 @@ def test_spec_module_does_not_import_pymc():
     import sys
 
     code = (
-        "import sys, bayes_rr.priors.spec, bayes_rr.study.data, bayes_rr.study.classical, bayes_rr.cli;"
+        "import sys, bayes_rr.priors.spec, bayes_rr.study.data, bayes_rr.study.classical, "
+        "bayes_rr.cli;"
         "print('pymc' in sys.modules)"
     )
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

@@ -207,7 +207,6 @@ FAMILY = Family(
         "part is not recognised as such. Per-appraiser results need the crossed-logit model.",
     ),
     cautions=(
-        "The beta-binomial model ignores appraiser identity across parts (see the model "
-        "section).",
+        "The beta-binomial model ignores appraiser identity across parts (see the model section).",
     ),
 )

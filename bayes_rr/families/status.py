@@ -147,8 +147,6 @@ def status_draws(posterior: xr.Dataset, study: StudyData) -> StatusDraws:
     )
 
 
-
-
 def hyper_parameters(spec: ModelSpec):
     return (*status_intercept_hypers(spec), *term_hyper_parameters(spec))
 

@@ -144,4 +144,3 @@ divergences; centered they pass."""
 
 SAMPLERS = ("nutpie", "pymc")
 SHARING = ("shared", "per_part")
-

@@ -119,8 +119,8 @@ class SampleRun:
     compiled: object = None
     """nutpie's compiled model, for another run of the same model without compiling."""
     compile_source: str | None = None
-    """How the compiled model was obtained (:class:`bayes_rr.inference.compile_cache.CompileOutcome`);
-    None when it was given or the sampler compiles itself."""
+    """How the compiled model was obtained (``compile_cache.CompileOutcome``); None when it
+    was given or the sampler compiles itself."""
 
 
 def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:

@@ -380,9 +380,7 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         _check_keys(table, {"link"}, "[curve]", source)
         link = table.get("link", link)
         if link not in info.links:
-            raise SpecError(
-                f"{source}: curve.link = {link!r}: expected one of {list(info.links)}"
-            )
+            raise SpecError(f"{source}: curve.link = {link!r}: expected one of {list(info.links)}")
     elif "curve" in raw:
         raise SpecError(f"{source}: [curve] is for the call_curve family, not {family!r}")
     concentration = None

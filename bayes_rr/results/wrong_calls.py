@@ -85,5 +85,3 @@ def rate_readings(rows: list[dict], found: list[dict], prob: float) -> list[str]
             f"other appraiser (posterior probability {item['probability']:.2f})."
         )
     return out
-
-

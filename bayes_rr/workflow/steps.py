@@ -159,6 +159,7 @@ def report_fit(
     criteria: str | Path | None = None,
     compare: list[str | Path] | None = None,
     calibration: str | Path | None = None,
+    folder_label: str | None = None,
 ) -> Path:
     """Write the HTML report of a fit (running the checks first when they are missing).
 
@@ -167,6 +168,7 @@ def report_fit(
     ``compare``: other fit folders of the same data, compared with this one by
     PSIS-LOO in the report. ``calibration``: a ``bayes-rr calibrate`` folder whose
     results go into the report as evidence that the intervals are calibrated.
+    ``folder_label``: how the report names the fit folder (default: its path).
     """
     from bayes_rr.report.html import ReportInputs, render_report
 
@@ -210,7 +212,7 @@ def report_fit(
                 title=title,
                 site=site,
                 notes=notes,
-                folder=str(folder),
+                folder=str(folder) if folder_label is None else folder_label,
                 comparison=comparison,
                 calibration=calibration_document,
             )

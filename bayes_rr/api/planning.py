@@ -1,0 +1,88 @@
+"""Many fits from Python: plan the next study, check that intervals are calibrated.
+
+Both run on a Dask cluster (local by default) and write a run folder, as the commands
+``bayes-rr plan`` and ``bayes-rr calibrate`` do; they return the run's JSON document.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+
+
+def _counts(values: int | Sequence[int], name: str, least: int, most: int) -> tuple[int, ...]:
+    from bayes_rr.simulation.designs import parse_counts
+
+    text = str(values) if isinstance(values, int) else ",".join(str(v) for v in values)
+    return parse_counts(text, name, least, most)
+
+
+def plan(
+    out: str | Path,
+    model: str | Path = "crossed-logit",
+    *,
+    parts: int | Sequence[int] = (20, 40),
+    appraisers: int | Sequence[int] = 3,
+    trials: int | Sequence[int] = 2,
+    part_mix: float | None = None,
+    sims: int = 50,
+    seed: int = 1,
+    prior_from: str | Path | None = None,
+    criteria: str | Path | None = None,
+    target_width: float | None = None,
+    target_assurance: float | None = None,
+    target_key: str | None = None,
+    draws: int | None = None,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    progress: bool = False,
+) -> dict:
+    """Expected interval widths (and, with criteria, assurance) of each design of the
+    grid ``parts`` x ``appraisers`` x ``trials``; writes ``plan.json`` into ``out`` and
+    returns it (``document["designs"]`` is a row per design)."""
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.results.decisions import check_keys, load_criteria
+    from bayes_rr.simulation.designs import MAX_APPRAISERS, MAX_PARTS, MAX_TRIALS, design_grid
+    from bayes_rr.simulation.plan import PlanRequest, run_plan
+
+    spec = load_spec(model)
+    wanted = load_criteria(criteria) if criteria is not None else ()
+    check_keys(wanted)
+    grid = design_grid(
+        _counts(parts, "parts", 2, MAX_PARTS),
+        _counts(appraisers, "appraisers", 1, MAX_APPRAISERS),
+        _counts(trials, "trials", 1, MAX_TRIALS),
+        part_mix,
+    )
+    earlier = None if prior_from is None else str(prior_from)
+    request = PlanRequest(spec, tuple(grid), sims, seed, wanted, target_width, target_assurance,
+                          target_key, earlier_folder=earlier, draws=draws)  # fmt: skip
+    return run_plan(request, Path(out), workers=workers, scheduler=scheduler, progress=progress)
+
+
+def calibrate(
+    out: str | Path,
+    model: str | Path = "crossed-logit",
+    *,
+    parts: int = 20,
+    appraisers: int = 3,
+    trials: int = 2,
+    part_mix: float | None = None,
+    sims: int = 100,
+    seed: int = 1,
+    draws: int | None = None,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    progress: bool = False,
+) -> dict:
+    """Simulation-based calibration of the model at one design; writes
+    ``calibration.json`` into ``out`` and returns it (``document["verdict"]``)."""
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.simulation.calibrate import CalibrationRequest, run_calibration
+    from bayes_rr.simulation.designs import Design
+
+    request = CalibrationRequest(
+        load_spec(model), Design(parts, appraisers, trials, part_mix), sims, seed, draws=draws
+    )
+    return run_calibration(request, Path(out), workers=workers, scheduler=scheduler,
+                           progress=progress)  # fmt: skip
