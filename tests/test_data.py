@@ -66,7 +66,8 @@ def test_xlsx_with_sheet(tmp_path):
 @pytest.mark.parametrize(
     ("accept", "reject"),
     [("0", "1"), ("Pass", "FAIL"), ("go", "No-Go"), ("good", "bad"), ("OK", "n g"),
-     ("Conforming", "non-conforming"), ("accept", "reject")],
+     ("Conforming", "non-conforming"), ("accept", "reject"), ("OK", "NOK"),
+     ("i.O.", "n.i.O."), ("IO", "NIO"), ("GO", "NOGO")],
 )  # fmt: skip
 def test_vocabularies(tmp_path, accept, reject):
     text = f"part,appraiser,call\n1,A,{accept}\n1,A,{reject}\n2,A,{reject}\n"

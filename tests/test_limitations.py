@@ -122,3 +122,28 @@ def test_fit_without_appraiser_terms_says_why_end_to_end(small_sim, tmp_path):
     assert not any("due to appraisers" in s for s in summary["readings"])
     assert "by design" in result.stdout
     assert "zero by the model's construction" in " ".join(result.stdout.split())
+
+
+def test_the_answer_box_and_the_python_face_follow_the_limitations(fits):
+    """A study with one trial per cell: the report's answer box shows the repeat
+    disagreement as set by the prior, not as a number, and the face's summary carries the
+    note on that row."""
+    from bayes_rr.api.fitting import Fit
+    from bayes_rr.report.answer import answer_box
+    from bayes_rr.report.blocks import ReportInputs
+
+    result = fits["crossed-logit"]
+    one_trial = _codes(
+        study_from_cells(["P1", "P2"], ["A", "B"], [[1, 1], [1, 1]], [[1, 0], [0, 0]])
+    )["one_trial"]
+    rows = mark_limited(list(result.estimand_rows), [one_trial])
+    limited = replace(result, estimand_rows=tuple(rows), limitations=(one_trial,))
+    summary = summary_document(limited)
+    box = answer_box(ReportInputs(summary=summary, run={}, classical={}, checks=None))
+    repeat = next(r for r in rows if (r.key, r.scope, r.level) ==
+                  ("repeat_disagreement", "study", "study"))  # fmt: skip
+    assert f"{repeat.mean:.1%}" not in box
+    assert "set by the prior (one trial)" in box
+    frame = Fit(result.study, result.spec, summary, {}, {}, None, result=limited).summary()
+    noted = frame[(frame["key"] == "repeat_disagreement") & (frame["level"] == "study")]
+    assert noted["note"].str.startswith("set by the prior").all()

@@ -248,10 +248,10 @@ def test_check_output_dir_allows_a_new_or_empty_folder(tmp_path):
 def test_demo_checks_a_new_folder_without_creating_anything_first(tmp_path, monkeypatch):
     # A new --out folder passes the checks (its fit folder is new too); the fit itself is
     # stood in for: this test is about the order of the checks, not about sampling.
-    import bayes_rr.cli as cli
+    import bayes_rr.cli.study_commands as commands
 
     calls = []
-    monkeypatch.setattr(cli, "run_fit", lambda *a, **k: calls.append(a) or (_ for _ in ()).throw(
+    monkeypatch.setattr(commands, "run_fit", lambda *a, **k: calls.append(a) or (_ for _ in ()).throw(
         KeyboardInterrupt))  # fmt: skip
     result = runner.invoke(app, ["demo", "--out", str(tmp_path / "new"), "--quiet"])
     assert result.exit_code == 130 and calls, result.output

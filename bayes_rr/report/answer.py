@@ -4,7 +4,7 @@ appraisers compared, and the glossary."""
 from __future__ import annotations
 
 from bayes_rr.core import glossary
-from bayes_rr.report.blocks import ReportInputs, esc, figure_tag, html_table
+from bayes_rr.report.blocks import LIMITED_NOTES, ReportInputs, esc, figure_tag, html_table
 from bayes_rr.study.describe import reference_rows
 
 # ---------------------------------------------------------------------------
@@ -132,6 +132,11 @@ RATE_COLUMNS = (
 def _percent_interval(row: dict | None) -> str:
     if row is None or row.get("mean") is None:
         return "-"
+    note = row.get("note") or ""
+    if note.startswith(LIMITED_NOTES):
+        # The design cannot inform this result: say so instead of printing a number
+        # (the limitation's sentence follows the table).
+        return f"<em>{esc(note.split(';')[0])}</em>"
     return f"{row['mean']:.1%} ({row['lower']:.1%} to {row['upper']:.1%})"
 
 

@@ -58,6 +58,10 @@ LABEL_VOCABULARIES: tuple[tuple[str, str], ...] = (
     ("go", "nogo"),
     ("good", "bad"),
     ("ok", "ng"),
+    ("ok", "nok"),
+    # "in Ordnung" / "nicht in Ordnung", common on German shop floors (i.O. / n.i.O.)
+    ("i.o.", "n.i.o."),
+    ("io", "nio"),
     ("conforming", "nonconforming"),
 )
 
