@@ -1,5 +1,7 @@
 """Limits that fail fast, in one line, before anything is compiled or allocated."""
 
+from types import SimpleNamespace
+
 import pytest
 from helpers import write
 from typer.testing import CliRunner
@@ -91,3 +93,51 @@ def test_pairwise_statistics_beyond_the_limit_are_listed_as_not_computed():
     # below the limit they are all there
     small = study_from_cells(["P1", "P2"], names[:3], [[2] * 3] * 2, [[0, 1, 2], [1, 1, 1]])
     assert len(classical_statistics(small).appraiser_differences) == 3
+
+
+class _Sampled(Exception):
+    """Stands in for sampling: the test is about the checks before it."""
+
+
+def test_memory_check_follows_the_draws_the_fit_takes(monkeypatch):
+    """The latent class model of the dental data (Espeland and Handelman 1989; 3,869
+    patients x 5 dentists) with the default sampler settings on a 24 GiB machine: the
+    spec's 4 x 2,000 draws would not fit the budget, the first stage's 4 x 1,000 do, so the
+    fit starts; the full number is checked again before a second stage and refused there
+    with the reason."""
+    from test_wrong_calls import dental_study
+
+    import bayes_rr.inference.sampling as sampling
+    import bayes_rr.workflow.fit as fit_module
+
+    monkeypatch.setattr(sampling, "machine_memory_bytes", lambda: 24 * 2**30)
+    study = dental_study()
+    spec = load_spec("latent-class")
+    settings = SamplerSettings.from_spec(spec, seed=1)
+    size = (len(study.parts), len(study.appraisers), len(study.cells))
+    with pytest.raises(SpecError, match="GiB budget"):
+        check_memory(*size, settings, "latent_class")  # what the fit used to check
+    first = SamplerSettings.from_spec(spec, seed=1, draws=fit_module.FIRST_STAGE_DRAWS)
+    check_memory(*size, first, "latent_class")
+
+    def first_stage_only(model, stage, compiled=None):
+        assert stage.draws == fit_module.FIRST_STAGE_DRAWS
+        raise _Sampled
+
+    monkeypatch.setattr(fit_module, "sample_model", first_stage_only)
+    monkeypatch.setattr(fit_module, "cached_compiled", lambda *a: None)
+    monkeypatch.setattr(fit_module, "build_model", lambda *a: None, raising=False)
+    import bayes_rr.families as families
+
+    monkeypatch.setattr(families, "build_model", lambda *a: None)
+    with pytest.raises(_Sampled):
+        fit_module.fit_study(study, spec, settings, two_stage=True)
+
+    # the first stage fails the gate: the second is refused before it is sampled
+    failed = SimpleNamespace(diagnostics=SimpleNamespace(ok=False), timings={})
+    sampled = SimpleNamespace(compiled=None, compile_source="compiled", timings={}, idata=None)
+    monkeypatch.setattr(fit_module, "sample_model", lambda *a, **k: sampled)
+    monkeypatch.setattr(fit_module, "remember_compiled", lambda *a: None)
+    monkeypatch.setattr(fit_module, "_summarise", lambda *a: failed)
+    with pytest.raises(SpecError, match="did not pass the convergence gate, and 4 chains x 2,000"):
+        fit_module.fit_study(study, spec, settings, two_stage=True)

@@ -96,15 +96,22 @@ def planned_memory_bytes(
 
 
 def check_memory(
-    parts: int, appraisers: int, cells: int, settings: SamplerSettings, family: str = "logit"
+    parts: int,
+    appraisers: int,
+    cells: int,
+    settings: SamplerSettings,
+    family: str = "logit",
+    *,
+    why: str = "",
 ) -> None:
-    """Refuse, before anything is compiled, a fit that would not fit in memory."""
+    """Refuse, before anything is compiled (or before a second stage is sampled), a fit
+    that would not fit in memory. ``why`` opens the message (what led to these draws)."""
     need = planned_memory_bytes(parts, appraisers, cells, settings, family)
     budget = MEMORY_SHARE * machine_memory_bytes()
     if need > budget:
         raise SpecError(
-            f"{settings.chains} chains x {settings.draws:,} draws of a study of {parts} parts x "
-            f"{appraisers} appraisers need about {need / 2**30:.1f} GiB, more than the "
+            f"{why}{settings.chains} chains x {settings.draws:,} draws of a study of {parts} "
+            f"parts x {appraisers} appraisers need about {need / 2**30:.1f} GiB, more than the "
             f"{budget / 2**30:.1f} GiB budget ({MEMORY_SHARE:.0%} of this machine's memory); "
             "use fewer --draws or --chains"
         )

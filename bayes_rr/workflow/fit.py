@@ -143,7 +143,13 @@ def fit_study(
             f"a production distribution is used by the call-curve model only, not by "
             f"{spec.name!r}; leave out the production options"
         )
-    check_memory(len(study.parts), len(study.appraisers), len(study.cells), settings, spec.family)
+    stages = [settings]
+    if two_stage and settings.draws > FIRST_STAGE_DRAWS:
+        stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
+    # The memory a fit needs follows the draws it takes: the first stage now, the full
+    # number only when the gate asks for it (checked again then).
+    size = (len(study.parts), len(study.appraisers), len(study.cells))
+    check_memory(*size, stages[0], spec.family)
     if criteria:
         from bayes_rr.results.decisions import check_keys
 
@@ -160,11 +166,10 @@ def fit_study(
     reused = compiled is not None
     model = None if reused else build_model(spec, study)
     timings = {"build_s": time.perf_counter() - t0}
-    stages = [settings]
-    if two_stage and settings.draws > FIRST_STAGE_DRAWS:
-        stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
     compile_source = "reused in this process" if reused else None
     for number, stage in enumerate(stages, 1):
+        if number > 1:
+            check_memory(*size, stage, spec.family, why=_SECOND_STAGE)
         run = sample_model(model, stage, compiled)
         compiled = run.compiled
         compile_source = compile_source or run.compile_source
@@ -239,6 +244,9 @@ def fit_study(
 
 
 FIRST_STAGE_DRAWS = 1000
+_SECOND_STAGE = (
+    f"the first {FIRST_STAGE_DRAWS:,} draws a chain did not pass the convergence gate, and "
+)
 """Draws a chain of a two-stage fit's first stage: enough for the gate's ESS of 400 in
 most studies (the demo's minimum bulk ESS at 4 x 1000 draws is about 700)."""
 
