@@ -251,8 +251,8 @@ def test_demo_checks_a_new_folder_without_creating_anything_first(tmp_path, monk
     import bayes_rr.cli.study_commands as commands
 
     calls = []
-    monkeypatch.setattr(commands, "run_fit", lambda *a, **k: calls.append(a) or (_ for _ in ()).throw(
-        KeyboardInterrupt))  # fmt: skip
+    interrupted = lambda *a, **k: calls.append(a) or (_ for _ in ()).throw(KeyboardInterrupt)  # noqa: E731
+    monkeypatch.setattr(commands, "run_fit", interrupted)
     result = runner.invoke(app, ["demo", "--out", str(tmp_path / "new"), "--quiet"])
     assert result.exit_code == 130 and calls, result.output
     assert (tmp_path / "new" / "demo_study.csv").is_file()
