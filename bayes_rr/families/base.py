@@ -111,6 +111,11 @@ class Family:
     """Sentences the report's model section adds about this family's assumptions."""
     cautions: tuple[str, ...] = ()
     """Items the report's cautions add for this family."""
+    mode_advice: tuple[str, ...] = (
+        "a more informative prior on that quantity, or a model without the term behind "
+        "it, usually leaves one mode",
+    )
+    """What helps this family when its chains settle in separate modes."""
     identification_note: str | None = None
     weak_identification: Callable[[xr.Dataset, float], str | None] | None = None
 

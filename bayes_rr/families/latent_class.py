@@ -354,6 +354,12 @@ FAMILY = Family(
     memory_per_draw=memory_per_draw,
     per_status_scales=PER_STATUS_SCALES,
     statements=STATEMENTS,
+    mode_advice=(
+        "fit without the part term (copy models/latent-class.toml and remove "
+        "[terms.part]): the part scale and the prevalence trade off against each other",
+        "or state a prior on the prevalence, or on one appraiser's accuracy ('bayes-rr "
+        "prior' takes false reject and false accept rates)",
+    ),
     identification_note=IDENTIFICATION_NOTE,
     weak_identification=weak_identification,
 )

@@ -275,6 +275,11 @@ class Diagnostics:
         return out
 
 
+def _chains(numbers: list[int]) -> str:
+    return " and ".join(str(n + 1) for n in numbers) if len(numbers) < 3 else (
+        ", ".join(str(n + 1) for n in numbers[:-1]) + f" and {numbers[-1] + 1}")  # fmt: skip
+
+
 def _extreme(rows, field: str, pick) -> tuple[float, str]:
     values = [(getattr(r, field), r) for r in rows if math.isfinite(getattr(r, field))]
     if not values:
@@ -286,10 +291,59 @@ def _extreme(rows, field: str, pick) -> tuple[float, str]:
     return float(value), where
 
 
-def convergence_gate(rows, sample_stats: xr.Dataset) -> Diagnostics:
+MODE_GAP = 4.0
+"""Chains settle in separate modes when their means fall into groups whose gap is more
+than this many of the chains' own (pooled) standard deviations, each group agreeing
+within one: chains that merely mix slowly wander over the gap instead."""
+
+
+def separate_modes(hyper: xr.Dataset) -> dict | None:
+    """The hyper-parameter whose chains settle farthest apart in separate groups, or None.
+
+    Returns the parameter's label, the groups' chain numbers and their means, and the
+    gap in pooled within-chain standard deviations.
+    """
+    found = None
+    for name, values in hyper.data_vars.items():
+        if "chain" not in values.dims or values.sizes["chain"] < 2:
+            continue
+        draws = values.transpose("chain", "draw", ...).to_numpy()
+        draws = draws.reshape(draws.shape[0], draws.shape[1], -1)
+        labels = [""] * draws.shape[2]
+        extra = [d for d in values.dims if d not in ("chain", "draw")]
+        if extra:
+            stacked = values.stack(element=extra).coords["element"].to_numpy()
+            labels = [f"[{', '.join(str(v) for v in np.atleast_1d(e))}]" for e in stacked]
+        for k in range(draws.shape[2]):
+            x = draws[:, :, k]
+            means, within = x.mean(axis=1), float(np.sqrt(np.mean(x.var(axis=1))))
+            if not within > 0:
+                continue
+            order = np.argsort(means)
+            steps = np.diff(means[order])
+            cut = int(np.argmax(steps))
+            groups = (order[: cut + 1], order[cut + 1 :])
+            spread = max(np.ptp(means[g]) for g in groups)
+            gap = float(steps[cut] / within)
+            if gap > MODE_GAP and spread <= within and (found is None or gap > found["gap"]):
+                found = {
+                    "label": f"{name}{labels[k]}",
+                    "chains": [sorted(int(c) for c in g) for g in groups],
+                    "means": [float(means[g].mean()) for g in groups],
+                    "gap": gap,
+                }
+    return found
+
+
+def convergence_gate(
+    rows, sample_stats: xr.Dataset, modes: dict | None = None, mode_advice: tuple = ()
+) -> Diagnostics:
     """r_hat <= 1.01, bulk and tail ESS >= 400 on every summarised estimand and
     hyper-parameter (``rows``: :class:`~bayes_rr.results.estimands.SummaryRow`), no divergences
-    beyond a small share (with a warning), E-BFMI >= 0.3 in every chain."""
+    beyond a small share (with a warning), E-BFMI >= 0.3 in every chain.
+
+    ``modes`` (from :func:`separate_modes`): chains settled in separate modes, which no
+    longer run can join; the message names the quantity and gives ``mode_advice``."""
     max_rhat, rhat_at = _extreme(rows, "r_hat", max)
     min_bulk, bulk_at = _extreme(rows, "ess_bulk", min)
     min_tail, tail_at = _extreme(rows, "ess_tail", min)
@@ -315,7 +369,20 @@ def convergence_gate(rows, sample_stats: xr.Dataset) -> Diagnostics:
         )
     if not min_bfmi >= BFMI_MIN:
         reasons.append(f"min E-BFMI {min_bfmi:.2f} < {BFMI_MIN}")
-    if reasons:
+    if modes is not None and reasons:
+        first, second = modes["chains"]
+        reasons.insert(0, (
+            f"the posterior has more than one mode: chains {_chains(first)} settle at "
+            f"{modes['label']} = {modes['means'][0]:.3g} and chains {_chains(second)} at "
+            f"{modes['means'][1]:.3g} ({modes['gap']:.0f} of their own standard deviations "
+            "apart); running longer cannot join them"
+        ))  # fmt: skip
+        advice.extend(mode_advice)
+        advice.append(
+            "fit the alternatives and weigh them by PSIS-LOO ('bayes-rr compare'); the "
+            "results stay withheld until one mode is left"
+        )
+    elif reasons:
         advice.append("run longer: more --tune and --draws (e.g. twice as many)")
         if divergences:
             advice.append("raise --target-accept (e.g. 0.95 or 0.99)")

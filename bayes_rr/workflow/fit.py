@@ -27,6 +27,7 @@ from bayes_rr.inference.sampling import (
     design_key,
     remember_compiled,
     sample_model,
+    separate_modes,
 )
 from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.results.estimands import (
@@ -288,7 +289,12 @@ def _summarise(raw, spec, study, settings, prob, interval, production) -> _Summa
     limitations = tuple(design_limitations(study, spec))
     estimand_rows = tuple(mark_limited(summarize(estimands, prob, interval), limitations))
     parameter_rows = tuple(summarize(hyper, prob, interval, level="parameter"))
-    diagnostics = convergence_gate(estimand_rows + parameter_rows, idata.sample_stats)
+    diagnostics = convergence_gate(
+        estimand_rows + parameter_rows,
+        idata.sample_stats,
+        modes=separate_modes(hyper),
+        mode_advice=family_of(spec).mode_advice,
+    )
     timings["summaries_s"] = time.perf_counter() - t0
     return _Summarised(posterior, estimands, idata, limitations, estimand_rows,
                        parameter_rows, diagnostics, timings)  # fmt: skip
