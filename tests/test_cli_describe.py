@@ -194,3 +194,18 @@ def test_terminal_tables_never_cut_a_value(fits, small_sim, width):
     text = captured.get()
     assert "…" not in text
     assert "0.0" in text  # the tables were printed
+
+
+@pytest.mark.parametrize("command", ["describe", "prior", "models", "fit", "check", "compare",
+                                     "report", "demo", "plan", "calibrate", "batch"])  # fmt: skip
+def test_help_at_80_columns_cuts_no_word_and_shows_brackets(command, monkeypatch):
+    """Every command's --help in an 80-column terminal: no line wider, no word cut short
+    with an ellipsis, and TOML tables such as [[statement]] printed as written."""
+    monkeypatch.setenv("COLUMNS", "80")
+    result = runner.invoke(app, [command, "--help"])
+    assert result.exit_code == 0, result.output
+    lines = result.output.splitlines()
+    assert max(len(line) for line in lines) <= 80
+    assert "…" not in result.output
+    if command == "prior":
+        assert "[[statement]]" in result.output

@@ -26,6 +26,8 @@ app = typer.Typer(
         "Start with 'bayes-rr demo', then 'bayes-rr describe YOUR_STUDY.csv'."
     ),
     no_args_is_help=True,
+    # help texts are plain text: "[[statement]]" is a TOML table, not a style tag
+    rich_markup_mode=None,
     add_completion=False,
     pretty_exceptions_enable=False,
 )
@@ -223,9 +225,10 @@ def data_options(func):
                 str | None,
                 Col(
                     "--reject-label",
-                    help="The label that means reject, when labels are not one of 0/1, "
-                    "accept/reject, pass/fail, go/no-go, good/bad, ok/ng, "
-                    "conforming/nonconforming.",
+                    # spaces around the slashes: help columns break between words only
+                    help="The label that means reject, when labels are not one of 0 / 1, "
+                    "accept / reject, pass / fail, go / no-go, good / bad, ok / ng, OK / NOK, "
+                    "i.O. / n.i.O., conforming / nonconforming.",
                 ),
             ],
             None,
@@ -263,8 +266,8 @@ def data_options(func):
                 list[str] | None,
                 Col(
                     "--wide-column",
-                    help="Wide layout with other column names: COLUMN=APPRAISER:TRIAL (repeat for "
-                    "every call column).",
+                    help="Wide layout with other column names: COLUMN=A:T for the calls of "
+                    "appraiser A in trial T (repeat for every call column).",
                 ),
             ],
             None,
