@@ -261,6 +261,9 @@ class Diagnostics:
     warnings: tuple[str, ...]
     advice: tuple[str, ...]
     worst: dict
+    modes: dict | None = None
+    """Chains settled in separate modes (see :func:`separate_modes`); more draws cannot
+    help then."""
 
     def as_dict(self) -> dict:
         out = asdict(self)
@@ -401,4 +404,5 @@ def convergence_gate(
         warnings=tuple(warnings),
         advice=tuple(advice),
         worst={"r_hat": rhat_at, "ess_bulk": bulk_at, "ess_tail": tail_at},
+        modes=modes if reasons else None,
     )

@@ -181,9 +181,10 @@ def fit_study(
         summary = _summarise(run.idata, spec, study, stage, prob, interval, production)
         for key, value in summary.timings.items():
             timings[key] = timings.get(key, 0.0) + value
-        # The first stage's sample is kept when it passes the gate; otherwise the
-        # same compiled model runs again with the full number of draws.
-        if summary.diagnostics.ok or number == len(stages):
+        # The first stage's sample is kept when it passes the gate, or when its chains
+        # sit in separate modes (more draws cannot join them); otherwise the same
+        # compiled model runs again with the full number of draws.
+        if summary.diagnostics.ok or summary.diagnostics.modes or number == len(stages):
             break
     settings = stage
     posterior, estimands, idata = summary.posterior, summary.estimands, summary.idata
