@@ -279,8 +279,11 @@ class Diagnostics:
 
 
 def _chains(numbers: list[int]) -> str:
-    return " and ".join(str(n + 1) for n in numbers) if len(numbers) < 3 else (
-        ", ".join(str(n + 1) for n in numbers[:-1]) + f" and {numbers[-1] + 1}")  # fmt: skip
+    """ "chain 4 settles" or "chains 1, 2 and 3 settle" (numbered from 1)."""
+    names = [str(n + 1) for n in numbers]
+    if len(names) == 1:
+        return f"chain {names[0]} settles"
+    return f"chains {', '.join(names[:-1])} and {names[-1]} settle"
 
 
 def _extreme(rows, field: str, pick) -> tuple[float, str]:
@@ -375,8 +378,8 @@ def convergence_gate(
     if modes is not None and reasons:
         first, second = modes["chains"]
         reasons.insert(0, (
-            f"the posterior has more than one mode: chains {_chains(first)} settle at "
-            f"{modes['label']} = {modes['means'][0]:.3g} and chains {_chains(second)} at "
+            f"the posterior has more than one mode: {_chains(first)} at "
+            f"{modes['label']} = {modes['means'][0]:.3g} and {_chains(second)} at "
             f"{modes['means'][1]:.3g} ({modes['gap']:.0f} of their own standard deviations "
             "apart); running longer cannot join them"
         ))  # fmt: skip
