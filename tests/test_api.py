@@ -143,3 +143,14 @@ def test_notebook_display_escapes_user_strings(small_sim, tmp_path):
     assert "<script>" not in html
     assert fitted.converged and "<table" in html  # the answer table, not only the header
     assert "<script>" in repr(fitted.summary()["appraiser"].dropna().tolist())
+
+
+def test_plan_request_takes_counts_as_numbers_lists_or_text():
+    from bayes_rr.api.planning import plan_request
+
+    by_list = plan_request("beta-binomial", parts=[10, 20], appraisers=3, trials=(2,))
+    by_text = plan_request("beta-binomial", parts="10,20", appraisers="3", trials="2")
+    assert by_list.designs == by_text.designs
+    assert [(d.parts, d.appraisers, d.trials) for d in by_list.designs] == [(10, 3, 2), (20, 3, 2)]
+    with pytest.raises(SpecError, match="parts"):
+        plan_request("beta-binomial", parts=1)

@@ -10,20 +10,20 @@ from collections.abc import Sequence
 from pathlib import Path
 
 
-def _counts(values: int | Sequence[int], name: str, least: int, most: int) -> tuple[int, ...]:
+def _counts(values: int | str | Sequence[int], name: str, least: int, most: int):
     from bayes_rr.simulation.designs import parse_counts
 
-    text = str(values) if isinstance(values, int) else ",".join(str(v) for v in values)
-    return parse_counts(text, name, least, most)
+    if not isinstance(values, (int, str)):
+        values = ",".join(str(v) for v in values)
+    return parse_counts(values, name, least, most)
 
 
-def plan(
-    out: str | Path,
+def plan_request(
     model: str | Path = "crossed-logit",
     *,
-    parts: int | Sequence[int] = (20, 40),
-    appraisers: int | Sequence[int] = 3,
-    trials: int | Sequence[int] = 2,
+    parts: int | str | Sequence[int] = (20, 40),
+    appraisers: int | str | Sequence[int] = 3,
+    trials: int | str | Sequence[int] = 2,
     part_mix: float | None = None,
     sims: int = 50,
     seed: int = 1,
@@ -33,30 +33,48 @@ def plan(
     target_assurance: float | None = None,
     target_key: str | None = None,
     draws: int | None = None,
-    workers: int | None = None,
-    scheduler: str | None = None,
-    progress: bool = False,
-) -> dict:
-    """Expected interval widths (and, with criteria, assurance) of each design of the
-    grid ``parts`` x ``appraisers`` x ``trials``; writes ``plan.json`` into ``out`` and
-    returns it (``document["designs"]`` is a row per design)."""
+    option_prefix: str = "",
+):
+    """The :class:`~bayes_rr.simulation.plan.PlanRequest` of a plan, checked (counts as
+    numbers, lists or text such as ``"20,40"``; ``option_prefix`` names them in messages,
+    ``"--"`` for the command line)."""
     from bayes_rr.priors.spec import load_spec
     from bayes_rr.results.decisions import check_keys, load_criteria
     from bayes_rr.simulation.designs import MAX_APPRAISERS, MAX_PARTS, MAX_TRIALS, design_grid
-    from bayes_rr.simulation.plan import PlanRequest, run_plan
+    from bayes_rr.simulation.plan import PlanRequest
 
     spec = load_spec(model)
     wanted = load_criteria(criteria) if criteria is not None else ()
     check_keys(wanted)
     grid = design_grid(
-        _counts(parts, "parts", 2, MAX_PARTS),
-        _counts(appraisers, "appraisers", 1, MAX_APPRAISERS),
-        _counts(trials, "trials", 1, MAX_TRIALS),
+        _counts(parts, f"{option_prefix}parts", 2, MAX_PARTS),
+        _counts(appraisers, f"{option_prefix}appraisers", 1, MAX_APPRAISERS),
+        _counts(trials, f"{option_prefix}trials", 1, MAX_TRIALS),
         part_mix,
     )
     earlier = None if prior_from is None else str(prior_from)
-    request = PlanRequest(spec, tuple(grid), sims, seed, wanted, target_width, target_assurance,
-                          target_key, earlier_folder=earlier, draws=draws)  # fmt: skip
+    return PlanRequest(spec, tuple(grid), sims, seed, wanted, target_width, target_assurance,
+                       target_key, earlier_folder=earlier, draws=draws)  # fmt: skip
+
+
+def plan(
+    out: str | Path,
+    model: str | Path = "crossed-logit",
+    *,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    progress: bool = False,
+    **design,
+) -> dict:
+    """Expected interval widths (and, with criteria, assurance) of each design of the
+    grid ``parts`` x ``appraisers`` x ``trials``; writes ``plan.json`` into ``out`` and
+    returns it (``document["designs"]`` is a row per design). ``design`` takes the
+    keywords of :func:`plan_request`: ``parts``, ``appraisers``, ``trials``, ``part_mix``,
+    ``sims``, ``seed``, ``prior_from``, ``criteria``, ``target_width``,
+    ``target_assurance``, ``target_key``, ``draws``."""
+    from bayes_rr.simulation.plan import run_plan
+
+    request = plan_request(model, **design)
     return run_plan(request, Path(out), workers=workers, scheduler=scheduler, progress=progress)
 
 

@@ -110,38 +110,16 @@ def plan(
     quiet: Annotated[bool, typer.Option("--quiet", help="No progress bar.")] = False,
 ) -> None:
     """Plan the next study: expected interval widths (and assurance) for each design."""
-    from bayes_rr.priors.spec import load_spec
-    from bayes_rr.results.decisions import check_keys, load_criteria
-    from bayes_rr.simulation.designs import (
-        MAX_APPRAISERS,
-        MAX_PARTS,
-        MAX_TRIALS,
-        design_grid,
-        parse_counts,
-    )
-    from bayes_rr.simulation.plan import PlanRequest, run_plan
+    from bayes_rr.api.planning import plan_request
+    from bayes_rr.simulation.plan import run_plan
 
-    spec = load_spec(model)
-    wanted = load_criteria(criteria) if criteria is not None else ()
-    check_keys(wanted)
-    grid = design_grid(
-        parse_counts(parts, "--parts", 2, MAX_PARTS),
-        parse_counts(appraisers, "--appraisers", 1, MAX_APPRAISERS),
-        parse_counts(trials, "--trials", 1, MAX_TRIALS),
-        part_mix,
-    )
-    request = PlanRequest(
-        spec,
-        tuple(grid),
-        sims,
-        seed,
-        wanted,
-        target_width,
-        target_assurance,
-        target_key,
-        earlier_folder=None if prior_from is None else str(prior_from),
-        draws=draws,
-    )
+    request = plan_request(
+        model, parts=parts, appraisers=appraisers, trials=trials, part_mix=part_mix,
+        sims=sims, seed=seed, prior_from=prior_from, criteria=criteria,
+        target_width=target_width, target_assurance=target_assurance, target_key=target_key,
+        draws=draws, option_prefix="--",
+    )  # fmt: skip
+    spec, wanted = request.spec, request.criteria
     document = _resumable(
         out_dir, run_plan, request, workers=workers, scheduler=scheduler, quiet=quiet
     )
