@@ -123,6 +123,22 @@ class Family:
     def name(self) -> str:
         return self.info.name
 
+    def find_hyper_parameter(
+        self, spec: ModelSpec, variable: str, status: str | None
+    ) -> HyperParameter | None:
+        """The hyper-parameter a factor about ``variable`` (and ``status``) refers to: a
+        factor per status of a variable with one prior but a value per status refers to
+        that one prior."""
+        per_status = variable in self.per_status_scales
+        for hyper in self.hyper_parameters(spec):
+            if hyper.variable != variable:
+                continue
+            if hyper.status == status:
+                return hyper
+            if hyper.status is None and status in ("accept", "reject") and per_status:
+                return hyper
+        return None
+
 
 # ---------------------------------------------------------------------------
 # pieces the families share

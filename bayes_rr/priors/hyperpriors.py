@@ -31,15 +31,7 @@ def hyper_parameters(spec: ModelSpec) -> tuple[HyperParameter, ...]:
 
 def find(spec: ModelSpec, variable: str, status: str | None) -> HyperParameter | None:
     """The hyper-parameter a factor about ``variable`` (and ``status``) refers to."""
-    for hyper in hyper_parameters(spec):
-        if hyper.variable != variable:
-            continue
-        if hyper.status == status:
-            return hyper
-        per_status = variable in family_of(spec).per_status_scales
-        if hyper.status is None and status in ("accept", "reject") and per_status:
-            return hyper
-    return None
+    return family_of(spec).find_hyper_parameter(spec, variable, status)
 
 
 def elements(spec: ModelSpec, hyper: HyperParameter) -> tuple[str | None, ...]:

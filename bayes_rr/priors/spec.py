@@ -304,13 +304,12 @@ def _earlier(raw: dict, source: str) -> EarlierStudy | None:
 
 def _check_earlier(spec: ModelSpec) -> None:
     """Every factor names a hyper-parameter of the spec, on that parameter's scale."""
-    from bayes_rr.priors.hyperpriors import find, hyper_parameters
-
     if spec.earlier is None:
         return
-    known = sorted({h.label for h in hyper_parameters(spec)})
+    family = FAMILIES[spec.family]
+    known = sorted({h.label for h in family.hyper_parameters(spec)})
     for i, factor in enumerate(spec.earlier.factors):
-        hyper = find(spec, factor.parameter, factor.status)
+        hyper = family.find_hyper_parameter(spec, factor.parameter, factor.status)
         where = f"{spec.source}: earlier_study.factor[{i}]"
         if hyper is None:
             label = factor.parameter if factor.status is None else (
