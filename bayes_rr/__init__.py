@@ -25,8 +25,7 @@ __version__ = "0.1.0"
 # import itself, so only that one notice is silenced.
 warnings.filterwarnings("ignore", message=r"\s*ArviZ is undergoing", category=FutureWarning)
 
-DEFAULT_PROB = 0.95
-"""Default probability of every interval in the project (``bayes_rr.core.DEFAULT_PROB``)."""
+from bayes_rr.core import DEFAULT_PROB  # noqa: E402 (after the warning filter, on purpose)
 
 FACE = ("Description", "Fit", "calibrate", "describe", "fit", "load", "plan", "read_study")
 __all__ = ["DEFAULT_PROB", "__version__", *FACE]
