@@ -134,7 +134,7 @@ def test_memory_check_follows_the_draws_the_fit_takes(monkeypatch):
         fit_module.fit_study(study, spec, settings, two_stage=True)
 
     # the first stage fails the gate: the second is refused before it is sampled
-    failed = SimpleNamespace(diagnostics=SimpleNamespace(ok=False), timings={})
+    failed = SimpleNamespace(diagnostics=SimpleNamespace(ok=False, modes=None), timings={})
     sampled = SimpleNamespace(compiled=None, compile_source="compiled", timings={}, idata=None)
     monkeypatch.setattr(fit_module, "sample_model", lambda *a, **k: sampled)
     monkeypatch.setattr(fit_module, "remember_compiled", lambda *a: None)
