@@ -62,9 +62,10 @@ class Fit:
 
     def summary(self) -> pd.DataFrame:
         """Every result, one row each: ``key``, ``level`` (study, system, appraiser, part),
-        ``scope`` (study or population), ``appraiser``, ``part``, the posterior ``mean``,
-        ``median``, ``sd``, the interval (``lower``, ``upper``), ``r_hat``, ``ess_bulk``,
-        ``ess_tail`` and ``note`` (why a row rests on the prior or the design alone)."""
+        ``scope`` (study, population or production), ``appraiser``, ``part``, the
+        posterior ``mean``, ``median``, ``sd``, the interval (``lower``, ``upper``),
+        ``r_hat``, ``ess_bulk``, ``ess_tail`` and ``note`` (why a row rests on the prior
+        or the design alone)."""
         frame = pd.DataFrame(self.document["estimands"])
         for column in SUMMARY_COLUMNS:
             if column not in frame:
@@ -88,6 +89,38 @@ class Fit:
                 "latent-class (none) or call-curve (a measured value and a limit)"
             )
         return frame
+
+    def strategies(self) -> pd.DataFrame:
+        """The inspection strategies compared on the line, one row each: ``strategy``,
+        ``description``, and for each figure (``calls_per_part``, ``escaped_per_million``,
+        ``rejected_good_per_million``, ``false_reject_rate``, ``false_accept_rate``,
+        ``shipped_bad_share``, ``cost_per_1000`` with costs) its posterior mean and
+        interval (``<figure>``, ``<figure>_lower``, ``<figure>_upper``), then
+        ``probability_cheapest`` and ``meets_criteria``."""
+        rows = self.document.get("strategies")
+        if not rows:
+            raise SpecError(
+                "this fit has no production figures; fit with production= (a production "
+                "file: bad_share, costs, strategies) and a model with wrong-call rates"
+            )
+        records = []
+        for row in rows:
+            record = {"strategy": row["name"], "description": row["description"]}
+            for key, figure in row["figures"].items():
+                record[key] = figure["mean"]
+                record[f"{key}_lower"] = figure["lower"]
+                record[f"{key}_upper"] = figure["upper"]
+            record["probability_cheapest"] = row["probability_cheapest"]
+            record["meets_criteria"] = row["meets_criteria"]
+            records.append(record)
+        return pd.DataFrame(records)
+
+    @property
+    def decision(self) -> dict | None:
+        """The strategy the costs and production criteria point to (``chosen``, or
+        ``closest`` when none meets them, and a ``sentence``); None when neither was
+        given."""
+        return self.document.get("decision")
 
     def check(self, draws: int = 500, seed: int = 0) -> dict:
         """Posterior and prior predictive checks (what ``bayes-rr check`` computes); writes
@@ -178,7 +211,10 @@ def fit(
     prob, interval
         Interval probability and kind (``"eti"`` equal-tailed or ``"hdi"``).
     production
-        A :class:`bayes_rr.families.curves.Production` (call-curve model).
+        What is known of the line: a production file (TOML path), or a
+        :class:`bayes_rr.study.production.ProductionMix` (models with wrong-call rates).
+        Adds the production-scope rows, the strategies compared and the decision
+        (``Fit.strategies``, ``Fit.decision``).
     """
     from bayes_rr.api.reading import read_study
     from bayes_rr.families import default_model
@@ -193,6 +229,10 @@ def fit(
         raise DataError(f"interval={interval!r}: expected 'hdi' or 'eti'")
     wanted = load_criteria(criteria) if isinstance(criteria, (str, Path)) else tuple(criteria or ())
     check_keys(wanted)
+    if isinstance(production, (str, Path)):
+        from bayes_rr.study.production import read_production
+
+        production = read_production(production)
     spec = load_spec(model) if model is not None else None
     if not isinstance(study, StudyData):
         study = read_study(study)

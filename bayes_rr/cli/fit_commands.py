@@ -19,23 +19,32 @@ from bayes_rr.inference.sampling import MAX_CHAINS, MAX_DRAWS
 from bayes_rr.study.data import ReadOptions
 
 
-def production_distribution(mean: float | None, sd: float | None, values: Path | None):
-    """The production distribution of the reference value given by the options, or None."""
-    from bayes_rr.families.curves import Production
+def production_input(path: Path | None, mean: float | None, sd: float | None, values: Path | None):
+    """What the options say of production (a ProductionMix), or None: a production file,
+    or (call curve) the measured value's distribution given on the command line."""
+    from bayes_rr.study.production import ProductionMix, read_production
 
+    short = mean is not None or sd is not None or values is not None
+    if path is not None:
+        if short:
+            raise DataError(
+                "give --production FILE or --production-mean/-sd/-values, not both; the file "
+                "takes mean, sd and values too"
+            )
+        return read_production(path)
     if values is not None:
         if mean is not None or sd is not None:
             raise DataError("give --production-values or --production-mean/-sd, not both")
         from bayes_rr.study.data import read_values
 
-        return Production(values=read_values(values))
+        return ProductionMix(values=read_values(values), source=str(values))
     if mean is None and sd is None:
         return None
     if mean is None or sd is None or not sd > 0:
         raise DataError(
             f"--production-mean {mean} --production-sd {sd}: give both, with a positive sd"
         )
-    return Production(mean, sd)
+    return ProductionMix(mean=mean, sd=sd, source="--production-mean/--production-sd")
 
 
 def run_fit(
@@ -186,6 +195,15 @@ def fit(
             "--overwrite", help="Replace an earlier fit folder (never a folder of other files)."
         ),
     ] = False,
+    production: Annotated[
+        Path | None,
+        Col(
+            "--production",
+            help="What you know of the line (TOML): bad_share, costs, strategies. Gives "
+            "escapes per million and compares inspection strategies (models with wrong-call "
+            "rates; see the README).",
+        ),
+    ] = None,
     production_mean: Annotated[
         float | None,
         Col("--production-mean", help="call-curve: mean of the reference value in production."),
@@ -240,7 +258,7 @@ def fit(
         interval=interval,
         quiet=quiet,
         overwrite=overwrite,
-        production=production_distribution(production_mean, production_sd, production_values),
+        production=production_input(production, production_mean, production_sd, production_values),
         criteria=criteria,
         prior_from=prior_from,
         prior_weight=prior_weight,

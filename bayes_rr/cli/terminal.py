@@ -10,6 +10,7 @@ import typer
 from rich.table import Table
 
 from bayes_rr.cli.shell import _num, err, out
+from bayes_rr.core.numbers import decimals_for, interval_text
 
 
 def print_description(result: dict) -> None:
@@ -153,6 +154,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         out.print(f"warning: {warning}")
     prob = summary["prob"]
     kind = "HDI" if summary["interval"] == "hdi" else "equal-tailed"
+    if summary.get("strategies"):
+        print_line(summary)
     if summary.get("wrong_calls"):
         print_rates(summary)
     if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
@@ -262,9 +265,82 @@ def _percent_interval(row: dict | None) -> str:
 
 
 def _value(row: dict | None) -> str:
+    """Mean and interval with the digits the interval needs (limits 0.001 apart read
+    apart)."""
     if row is None or row["mean"] is None:
         return "-"
-    return f"{row['mean']:.4g} ({row['lower']:.4g} to {row['upper']:.4g})"
+    return interval_text(row["mean"], row["lower"], row["upper"])
+
+
+def _stacked(figure: dict | None, per_million: bool = False) -> str:
+    """Mean above its interval (narrow columns that fit 80 terminal columns); a figure
+    the same in every draw (calls of a fixed strategy) is printed alone."""
+    if figure is None or figure.get("mean") is None:
+        return "-"
+    mean, lower, upper = (figure[k] for k in ("mean", "lower", "upper"))
+    if abs(upper - lower) <= 1e-9 * max(abs(mean), 1.0):
+        return f"{mean:g}"
+    d = 0 if per_million else decimals_for(lower, upper)
+    return f"{mean:.{d}f}\n{lower:.{d}f}-{upper:.{d}f}"
+
+
+LINE_CAUTION = (
+    "These production figures assume that the line's parts of each status resemble the "
+    "study's and that the appraisers call on the line as they did in the study; for "
+    "characteristics that matter to safety, the customer's requirements, local codes and "
+    "licensed practice come first."
+)
+
+
+def print_line(summary: dict) -> None:
+    """The line first: escapes and good parts rejected per million, each appraiser on
+    production parts, the strategies compared and (when asked for) the decision."""
+    from bayes_rr.core import glossary
+
+    prob = summary["prob"]
+    kind = "highest density" if summary["interval"] == "hdi" else "equal-tailed"
+    rows = {(r["key"], r["level"], r["appraiser"]): r for r in summary["estimands"]
+            if r["scope"] == "production"}  # fmt: skip
+    out.print(f"On the line (production scope): {summary['production']['description']}.")
+    for key in ("escaped_per_million", "rejected_good_per_million", "shipped_bad_share"):
+        row = rows.get((key, "system", None))
+        if row is not None:
+            out.print(f"  {glossary.name(key)}: {_value(row)}")
+    table = Table(title=f"One call a part, on the line ({prob:.0%} {kind} intervals)")
+    table.add_column("appraiser")
+    table.add_column("false reject rate", justify="right")
+    table.add_column("false accept rate", justify="right")
+    for name in [*summary["design"]["appraiser_names"], None]:
+        level = "appraiser" if name else "system"
+        cells = [_percent_interval(rows.get((key, level, name)))
+                 for key in ("false_reject_rate", "false_accept_rate")]  # fmt: skip
+        table.add_row(name or "the line (its shares)", *cells)
+    out.print(table)
+    strategies = summary["strategies"]
+    costs = strategies[0]["probability_cheapest"] is not None
+    table = Table(title="Inspection strategies on the line (mean, then interval)")
+    # widths that keep each number on its line at 80 columns; headers wrap between words
+    table.add_column("strategy", width=14)
+    table.add_column("calls a part", justify="right", width=5)
+    table.add_column("escaped per million", justify="right", width=10)
+    table.add_column("good rejected per million", justify="right", width=13)
+    if costs:
+        table.add_column("cost per 1,000", justify="right", width=9)
+        table.add_column("chance cheapest", justify="right", width=8)
+    for row in strategies:
+        f = row["figures"]
+        calls = f["calls_per_part"]["mean"]
+        cells = [f"{calls:.2f}", _stacked(f["escaped_per_million"], per_million=True),
+                 _stacked(f["rejected_good_per_million"], per_million=True)]  # fmt: skip
+        if costs:
+            cells += [_stacked(f["cost_per_1000"]), f"{row['probability_cheapest']:.2f}"]
+        table.add_row(row["name"], *cells)
+    out.print(table)
+    for row in strategies:
+        out.print(f"  {row['name']}: {row['description']}")
+    if summary.get("decision"):
+        out.print(f"decision: {summary['decision']['sentence']}", style="bold")
+    out.print(f"caution: {LINE_CAUTION}")
 
 
 def print_curves(summary: dict) -> None:

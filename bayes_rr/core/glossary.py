@@ -51,11 +51,51 @@ GLOSSARY: dict[str, tuple[str, str]] = {
         "agreement with the reference",
         "the share of calls that match the part's reference status",
     ),
+    "effective_limit": (
+        "effective limit",
+        "the measured value at which the appraiser rejects half the time",
+    ),
+    "bias": ("limit bias", "effective limit minus the specification limit"),
+    "transition_width": (
+        "transition width",
+        "the distance in the measured value from 10% to 90% reject probability, whatever "
+        "the curve's link: the zone where calls are unreliable",
+    ),
+    "limit_spread": (
+        "spread of effective limits",
+        "the standard deviation of the appraisers' effective limits",
+    ),
+    "bad_share": ("bad share", "the share of bad parts among the parts production makes"),
+    "escaped_per_million": (
+        "escaped bad parts per million",
+        "bad parts called accept and shipped, per million parts made",
+    ),
+    "rejected_good_per_million": (
+        "rejected good parts per million",
+        "good parts called reject, per million parts made",
+    ),
+    "shipped_bad_share": (
+        "bad share among shipped parts",
+        "the chance that a part the inspection accepts is bad",
+    ),
+    "calls_per_part": (
+        "calls per part",
+        "the expected number of calls an inspection strategy spends on one part",
+    ),
+    "cost_per_1000": (
+        "cost per 1,000 parts",
+        "rejected good parts, escapes and calls, at the stated costs, per 1,000 parts made",
+    ),
+    "probability_cheapest": (
+        "probability cheapest",
+        "the posterior probability that the strategy has the least cost",
+    ),
 }
 
 SCOPES = {
     "study": "the study's appraisers",
     "population": "a new appraiser from the same population",
+    "production": "the study's appraisers on the line's parts, as the production file states them",
 }
 """Scopes in words (estimands.md): results about the appraisers who took part, or about
 an appraiser not in the study."""

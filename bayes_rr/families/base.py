@@ -67,6 +67,28 @@ class HyperParameter:
         return UNCONSTRAINED[self.prior.support]
 
 
+@dataclass(frozen=True)
+class CallNodes:
+    """Call probabilities of the study's appraisers on production parts, at quadrature
+    nodes (docs/statistics.md, "A production part and its calls").
+
+    ``probabilities(block)`` gives, for the posterior draws ``block`` (a slice), the
+    array (draws, status, part node, appraiser, inner node): status 0 good and 1 bad,
+    part nodes over a part's own variation within its status (``part_weight`` (2, G),
+    each row summing to 1), inner nodes over the appraiser-by-part variation
+    (``inner_weight`` (H,), summing to 1). Repeat calls of one appraiser are independent
+    given the inner node; different appraisers' calls are independent given the part
+    node. ``bad_share`` is set when the family's production input fixes it (a call
+    curve's production distribution of the measured value).
+    """
+
+    draws: int
+    part_weight: np.ndarray
+    inner_weight: np.ndarray
+    probabilities: Callable[[slice], np.ndarray]
+    bad_share: float | None = None
+
+
 Variables = dict[str, tuple[tuple[str, ...], np.ndarray]]
 """Forward prior draws: name -> (dims after the draw axis, values (draws, ...))."""
 
@@ -77,10 +99,10 @@ class Family:
 
     ``build(spec, study)`` returns the PyMC model (PyMC is imported when it is
     called); ``prior_draws(spec, study, rng, draws)`` draws the parameters forward in
-    numpy with the builder's names and dims; ``latent(posterior, spec, study, rng,
-    production)`` turns posterior draws into call probabilities and family-specific
-    estimands; ``cell_probabilities(posterior, spec, study, rng)`` gives the (S, cell)
-    call probabilities the predictive check replicates calls from;
+    numpy with the builder's names and dims; ``latent(posterior, spec, study, rng)``
+    turns posterior draws into call probabilities and family-specific estimands;
+    ``cell_probabilities(posterior, spec, study, rng)`` gives the (S, cell) call
+    probabilities the predictive check replicates calls from;
     ``hyper_parameters(spec)`` lists which variable carries which stated prior.
     """
 
@@ -105,8 +127,9 @@ class Family:
     simulated_with_reference: bool = False
     """Whether simulated studies carry a reference status per part."""
     default_plan_target: str = "study__study__reproducibility_variance"
-    takes_production: bool = False
-    """Whether a production distribution of the measured value turns into rates."""
+    production_calls: Callable[..., CallNodes] | None = None
+    """``(posterior, spec, study, mix)`` -> :class:`CallNodes`: the family's calls on
+    production parts; None for a family without wrong-call rates."""
     model_notes: tuple[str, ...] = ()
     """Sentences the report's model section adds about this family's assumptions."""
     cautions: tuple[str, ...] = ()
@@ -122,6 +145,11 @@ class Family:
     @property
     def name(self) -> str:
         return self.info.name
+
+    @property
+    def takes_production(self) -> bool:
+        """Whether the family turns a production file into production-scope results."""
+        return self.production_calls is not None
 
     def find_hyper_parameter(
         self, spec: ModelSpec, variable: str, status: str | None

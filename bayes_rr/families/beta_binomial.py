@@ -151,7 +151,7 @@ def parameters(posterior: xr.Dataset, study: StudyData) -> tuple[np.ndarray, np.
     return pi, np.broadcast_to(1.0 / rho - 1.0, pi.shape)
 
 
-def latent(posterior: xr.Dataset, spec, study: StudyData, rng, production=None) -> LatentDraws:
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng) -> LatentDraws:
     n_parts, n_app = len(study.parts), len(study.appraisers)
     pi, phi = parameters(posterior, study)
     n = np.zeros((n_parts, n_app))

@@ -16,9 +16,11 @@ from typing import TYPE_CHECKING
 import numpy as np
 import xarray as xr
 
+from bayes_rr.core.errors import DataError
 from bayes_rr.core.moments import log_binom_coef
 from bayes_rr.families import forward
 from bayes_rr.families.base import (
+    CallNodes,
     Family,
     HyperParameter,
     LatentDraws,
@@ -28,8 +30,9 @@ from bayes_rr.families.base import (
     optional_draws,
     term_hyper_parameters,
 )
-from bayes_rr.families.curves import curve_probabilities, expected_rates
+from bayes_rr.families.curves import Production, curve_probabilities, production_nodes
 from bayes_rr.families.layout import coords, curve_design
+from bayes_rr.families.status import study_rates
 from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
 
 if TYPE_CHECKING:
@@ -159,10 +162,10 @@ def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, dra
     return out
 
 
-def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None, production=None) -> LatentDraws:
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDraws:
     """Call curves: call probabilities of the study's parts, the limits and widths per
-    appraiser and for the population, and (given a production distribution) the expected
-    false reject and false accept rates of each appraiser and of the system."""
+    appraiser and for the population, and the study-scope false reject and false accept
+    rates of the study's parts (whose status the measured value gives)."""
     design = curve_design(study, spec.name)
     limits = np.array([value for _, value, _ in design["sides"]])
     signs = np.array([sign for _, _, sign in design["sides"]])
@@ -191,12 +194,55 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None, production=N
         ("population", "system", "limit_spread"): (scale * spread, None),
         ("population", "system", "transition_width"): (scale * np.exp(log_width), None),
     }
-    if production is not None:
-        rates = expected_rates(limit, width, limits, signs, spec.link, production)
-        for key, values in rates.items():
-            extra[("study", "appraiser", key)] = (values, "appraiser")
-            extra[("study", "system", key)] = (values.mean(axis=1), None)
+    extra.update(_study_wrong_calls(p, design["x"], limits, signs))
     return LatentDraws(p, {}, log_lik, extra)
+
+
+def known_status(x: np.ndarray, limits: np.ndarray, signs: np.ndarray) -> np.ndarray:
+    """1 for a part beyond a limit (bad), else 0: the status a measured value gives."""
+    return (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1).astype(float)
+
+
+def _study_wrong_calls(p, x, limits, signs) -> dict:
+    """Study-scope false reject / false accept rates of the study's parts, whose status
+    the measured value and the limit give (docs/statistics.md, scopes); a rate whose
+    status no study part has is left out."""
+    bad = known_status(x, limits, signs)
+    rates = study_rates(p, p, np.broadcast_to(bad, p.shape[:2]))
+    keep = {"reference_agreement"}
+    if (bad == 0).any():
+        keep.add("false_reject_rate")
+    if (bad == 1).any():
+        keep.add("false_accept_rate")
+    return {
+        ("study", level, key): (values, "appraiser" if level == "appraiser" else None)
+        for level, keys in rates.items()
+        for key, values in keys.items()
+        if key in keep
+    }
+
+
+def production_calls(posterior: xr.Dataset, spec, study: StudyData, mix) -> CallNodes:
+    """The study's appraisers on production parts: nodes over the production distribution
+    of the measured value, split at the limits into good and bad parts."""
+    if not mix.has_measured:
+        raise DataError(
+            f"{mix.source}: the call-curve model needs the distribution of the measured value "
+            "in production (mean and sd, or values), not a bad share"
+        )
+    design = curve_design(study, spec.name)
+    limits = np.array([value for _, value, _ in design["sides"]])
+    signs = np.array([sign for _, _, sign in design["sides"]])
+    production = Production(mix.mean, mix.sd, mix.values)
+    limit = draws_of(posterior, "effective_limit")
+    width = draws_of(posterior, "transition_width")
+    try:
+        return production_nodes(limit, width, limits, signs, spec.link, production)
+    except ValueError:
+        raise DataError(
+            f"{mix.source}: under this distribution every production part is on one side of "
+            "the limit; check its mean, sd or values against the limit"
+        ) from None
 
 
 def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np.ndarray:
@@ -221,5 +267,5 @@ FAMILY = Family(
     hyper_parameters=hyper_parameters,
     memory_per_draw=cell_memory,
     appraiser_rows=True,
-    takes_production=True,
+    production_calls=production_calls,
 )

@@ -112,7 +112,7 @@ def cell_linear_predictor(posterior: xr.Dataset, study: StudyData) -> np.ndarray
     return eta
 
 
-def latent(posterior: xr.Dataset, spec, study: StudyData, rng, production=None) -> LatentDraws:
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng) -> LatentDraws:
     n_parts, n_app = len(study.parts), len(study.appraisers)
     eta_part = part_linear_predictor(posterior, study)
     s = eta_part.shape[0]

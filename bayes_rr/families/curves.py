@@ -15,6 +15,8 @@ import numpy as np
 from scipy import stats
 from scipy.special import expit, ndtr
 
+from bayes_rr.families.base import CallNodes
+
 GRID_POINTS = 2000
 """Nodes of the trapezoid rule over a normal production distribution (8 sd each side,
 the limits among the nodes): the error stays below 1e-4 for transition widths above
@@ -84,6 +86,30 @@ class Production:
         return np.concatenate(xs), np.concatenate(ws)
 
 
+def production_nodes(
+    effective_limit: np.ndarray,
+    width: np.ndarray,
+    limits: np.ndarray,
+    signs: np.ndarray,
+    link: str,
+    production: Production,
+) -> CallNodes:
+    """The appraisers' call probabilities at the nodes of the production distribution,
+    split at the limits into good parts (status 0) and bad parts beyond a limit (1)."""
+    x, weight = production.nodes(limits)
+    bad = (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1)
+    if not bad.any() or bad.all():
+        raise ValueError("the production distribution has no parts on one side of the limits")
+    part_weight = np.stack([weight * ~bad / weight[~bad].sum(), weight * bad / weight[bad].sum()])
+
+    def probabilities(block: slice) -> np.ndarray:
+        p = curve_probabilities(effective_limit[block], width[block], x, signs, link)
+        return np.broadcast_to(p[:, None, :, :, None], (p.shape[0], 2, *p.shape[1:], 1))
+
+    share = float(weight[bad].sum() / weight.sum())
+    return CallNodes(width.shape[0], part_weight, np.ones(1), probabilities, bad_share=share)
+
+
 def expected_rates(
     effective_limit: np.ndarray,
     width: np.ndarray,
@@ -92,21 +118,14 @@ def expected_rates(
     link: str,
     production: Production,
 ) -> dict[str, np.ndarray]:
-    """Expected false reject and false accept rates per draw and appraiser (S, appraiser).
-
-    False reject rate = E[p(x) | x good] and false accept rate = E[1 - p(x) | x bad] over
-    the production distribution, where x is bad beyond a limit.
-    """
-    x, weight = production.nodes(limits)
-    bad = (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1)
-    if not bad.any() or bad.all():
-        raise ValueError("the production distribution has no parts on one side of the limits")
-    w_good, w_bad = weight * ~bad, weight * bad
+    """Expected false reject and false accept rates per draw and appraiser (S, appraiser)
+    of one call on a production part: E[p(x) | x good] and E[1 - p(x) | x bad]."""
+    nodes = production_nodes(effective_limit, width, limits, signs, link, production)
     frr = np.empty(width.shape)
     far = np.empty(width.shape)
     for start in range(0, width.shape[0], BLOCK):
         block = slice(start, start + BLOCK)
-        p = curve_probabilities(effective_limit[block], width[block], x, signs, link)
-        frr[block] = np.einsum("sgj,g->sj", p, w_good) / w_good.sum()
-        far[block] = np.einsum("sgj,g->sj", 1.0 - p, w_bad) / w_bad.sum()
+        p = nodes.probabilities(block)[..., 0]  # (b, status, node, appraiser)
+        frr[block] = np.einsum("bgj,g->bj", p[:, 0], nodes.part_weight[0])
+        far[block] = 1.0 - np.einsum("bgj,g->bj", p[:, 1], nodes.part_weight[1])
     return {"false_reject_rate": frr, "false_accept_rate": far}

@@ -27,6 +27,7 @@ from bayes_rr.families.status import (
     STATEMENTS,
     StatusDraws,
     population_rates,
+    production_calls,
     rate_variables,
     status_draws,
     study_rates,
@@ -307,7 +308,7 @@ def identification_problem(study: StudyData) -> str | None:
     return None
 
 
-def latent(posterior: xr.Dataset, spec, study: StudyData, rng, production=None) -> LatentDraws:
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng) -> LatentDraws:
     extra, part_log_lik = rates(posterior, study)
     return LatentDraws(None, {}, part_log_lik, extra, log_lik_dim="part")
 
@@ -362,4 +363,5 @@ FAMILY = Family(
     ),
     identification_note=IDENTIFICATION_NOTE,
     weak_identification=weak_identification,
+    production_calls=production_calls,
 )

@@ -35,6 +35,7 @@ from bayes_rr.families.status import (
     STATEMENTS,
     StatusDraws,
     population_rates,
+    production_calls,
     rate_variables,
     status_draws,
     study_rates,
@@ -182,7 +183,7 @@ def _population_by_status(
     return out
 
 
-def latent(posterior: xr.Dataset, spec, study: StudyData, rng, production=None) -> LatentDraws:
+def latent(posterior: xr.Dataset, spec, study: StudyData, rng) -> LatentDraws:
     p, base, d, q = probabilities(posterior, study, rng)
     status = study.reference.to_numpy().astype(int)
     eta_part = d.intercept[:, status] + d.part_effect
@@ -231,4 +232,5 @@ FAMILY = Family(
     simulated=True,
     simulated_with_reference=True,
     default_plan_target="study__system__false_accept_rate",
+    production_calls=production_calls,
 )

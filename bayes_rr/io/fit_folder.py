@@ -245,11 +245,25 @@ def summary_document(result) -> dict:
         "comparisons": result.comparisons,
         "prior_sensitivity": result.prior_sensitivity,
         "prior_from": result.prior_from,
+        **_production_blocks(result, diagnostics["ok"]),
         "limitations": [lim.as_dict() for lim in limitations],
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],
         "r_hat_threshold": R_HAT_MAX,
         "glossary": glossary.as_dict(),
+    }
+
+
+def _production_blocks(result, ok: bool) -> dict:
+    """``production`` (what was assumed), ``strategies`` and ``decision``; the figures
+    and the decision only for a sample that passed the gate."""
+    document = getattr(result, "production", None)
+    if document is None:
+        return {"production": None, "strategies": [], "decision": None}
+    return {
+        "production": jsonable(document["production"]),
+        "strategies": jsonable(document["strategies"]) if ok else [],
+        "decision": jsonable(document["decision"]) if ok else None,
     }
 
 

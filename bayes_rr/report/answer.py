@@ -46,7 +46,9 @@ def answer_box(inputs: ReportInputs) -> str:
                 continue
             rows.append([esc(glossary.name(key)), esc(glossary.SCOPES[scope]),
                          _percent_interval(row)])  # fmt: skip
-    parts = []
+    from bayes_rr.report.line import line_lead
+
+    parts = [line_lead(summary)]
     if rows:
         parts.append(
             html_table(
@@ -91,6 +93,8 @@ _SCOPE_MEANING = {
     "study": "results about the appraisers who took part in the study, on the study's parts",
     "population": "results about an appraiser not in the study, drawn from the same "
     "population of appraisers, on the study's parts",
+    "production": "results about the study's appraisers on the parts the line makes, as the "
+    "production file describes them (share of bad parts, appraisers' shares of the parts)",
 }
 
 

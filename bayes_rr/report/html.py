@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from bayes_rr.report.answer import answer_box, glossary_section, study_section
 from bayes_rr.report.blocks import STYLE, ReportInputs, esc, figure_tag
+from bayes_rr.report.line import line_section
 from bayes_rr.report.sections import (
     calibration_section,
     cautions_section,
@@ -44,6 +45,11 @@ def render_report(inputs: ReportInputs) -> str:
     ]
     if ok:
         sections += [
+            *(
+                [("", "On the line: production and inspection strategies", line_section(inputs))]
+                if line_section(inputs)
+                else []
+            ),
             ("", "Results", results_section(inputs)),
             ("", "Classical statistics", classical_section(inputs.classical, has_reference)),
             ("", "Does the model fit the data?", checks_section(inputs)),

@@ -284,3 +284,27 @@ def appraiser_differences(pairs: list[dict], prob: float = 0.95) -> Figure | Non
                   fontsize=7)  # fmt: skip
     ax.set_xlabel(f"difference (posterior mean and {prob:.0%} interval)")
     return fig
+
+
+def strategy_crosses(strategies: list[dict], prob: float = 0.95) -> Figure | None:
+    """Escaped bad parts against rejected good parts per million, one interval cross a
+    strategy (posterior means, the arms its intervals)."""
+    if not strategies:
+        return None
+    fig, axes = _new(6.5, 4.2)
+    ax = axes[0, 0]
+    markers = "osD^v<>ph*"
+    for k, row in enumerate(strategies):
+        x = row["figures"]["rejected_good_per_million"]
+        y = row["figures"]["escaped_per_million"]
+        ax.errorbar(
+            x["mean"], y["mean"],
+            xerr=[[x["mean"] - x["lower"]], [x["upper"] - x["mean"]]],
+            yerr=[[y["mean"] - y["lower"]], [y["upper"] - y["mean"]]],
+            fmt=markers[k % len(markers)], color=f"C{k % 10}", ms=5, lw=1, capsize=2,
+            label=row["name"],
+        )  # fmt: skip
+    ax.set_xlabel(f"good parts rejected per million (mean, {prob:.0%} interval)")
+    ax.set_ylabel("bad parts shipped per million")
+    ax.legend(fontsize=7, frameon=False)
+    return fig

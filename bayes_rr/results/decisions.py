@@ -4,7 +4,7 @@ A criteria file (TOML) states what the user's organisation requires, e.g.
 
     [[criterion]]
     key = "repeatability_share"      # a study- or system-level estimand key
-    scope = "study"                  # or "population"
+    scope = "study"                  # or "population", or "production" (needs --production)
     below = 0.5                      # or: above = ...
     required_probability = 0.95
 
@@ -27,7 +27,7 @@ import xarray as xr
 from bayes_rr.core.errors import SpecError
 
 LEVELS = ("study", "system")
-SCOPES = ("study", "population")
+SCOPES = ("study", "population", "production")
 
 
 @dataclass(frozen=True)
@@ -140,7 +140,8 @@ def check_keys(criteria: tuple[Criterion, ...]) -> None:
     known = {
         *STUDY_KEYS, "cross_disagreement", "appraiser_bias_variance", "interaction_variance",
         "false_reject_rate", "false_accept_rate", "reference_agreement", "reject_prevalence",
-        "transition_width", "limit_spread",
+        "transition_width", "limit_spread", "escaped_per_million", "rejected_good_per_million",
+        "shipped_bad_share", "bad_share",
     }  # fmt: skip
     for criterion in criteria:
         base = criterion.key.split("[")[0]

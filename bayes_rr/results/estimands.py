@@ -137,15 +137,11 @@ def study_level(per_part: dict[str, np.ndarray], scope: str) -> dict[str, np.nda
 
 
 def latent_draws(
-    posterior: xr.Dataset, spec: ModelSpec, study: StudyData, seed: int = 0, production=None
+    posterior: xr.Dataset, spec: ModelSpec, study: StudyData, seed: int = 0
 ) -> LatentDraws:
-    """Latent call probabilities, population decomposition and cell log likelihood.
-
-    ``production`` (a :class:`bayes_rr.families.curves.Production`) is used by the call curve
-    family only: it turns the curves into expected false accept and reject rates.
-    """
+    """Latent call probabilities, population decomposition and cell log likelihood."""
     rng = np.random.default_rng(seed)
-    return family_of(spec).latent(posterior, spec, study, rng, production)
+    return family_of(spec).latent(posterior, spec, study, rng)
 
 
 def log_likelihood_dataset(

@@ -17,6 +17,7 @@ import xarray as xr
 
 from bayes_rr import __version__
 from bayes_rr.core import DEFAULT_PROB, interrupts
+from bayes_rr.core.jsonio import jsonable
 from bayes_rr.families import family_of
 from bayes_rr.inference.sampling import (
     Diagnostics,
@@ -76,6 +77,9 @@ class FitResult:
     """Power-scaling prior sensitivity of the study- and system-level results."""
     prior_from: dict | None = None
     """The earlier study carried in as prior and how well it was approximated."""
+    production: dict | None = None
+    """What was assumed of production, the strategies compared and the decision
+    (results.production.production_document); None without a production file."""
 
 
 def package_versions() -> dict[str, str]:
@@ -122,8 +126,9 @@ def fit_study(
 ) -> FitResult:
     """Sample the posterior of ``spec`` for ``study`` and compute every estimand.
 
-    ``production`` (:class:`bayes_rr.families.curves.Production`, call curve family only) gives
-    the expected false reject and false accept rates in production. ``criteria``
+    ``production`` (:class:`bayes_rr.study.production.ProductionMix`, the families with
+    wrong-call rates) adds the production-scope rows, the strategies compared and, with
+    costs or production criteria, the decision (docs/statistics.md). ``criteria``
     (:class:`bayes_rr.results.decisions.Criterion`) are evaluated on the draws. ``prior_from``
     (:func:`bayes_rr.priors.earlier.as_dict`) records the earlier study a spec carries.
     ``two_stage`` samples FIRST_STAGE_DRAWS a chain first and ``settings.draws`` (the
@@ -137,13 +142,7 @@ def fit_study(
     from bayes_rr.families import build_model
     from bayes_rr.families.pymc_parts import parameterizations
 
-    if production is not None and not family_of(spec).takes_production:
-        from bayes_rr.core.errors import SpecError
-
-        raise SpecError(
-            f"a production distribution is used by the call-curve model only, not by "
-            f"{spec.name!r}; leave out the production options"
-        )
+    _check_production(production, criteria, spec, study)
     stages = [settings]
     if two_stage and settings.draws > FIRST_STAGE_DRAWS:
         stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
@@ -178,7 +177,7 @@ def fit_study(
             remember_compiled(key, compiled)
         for key, value in run.timings.items():
             timings[key] = timings.get(key, 0.0) + value
-        summary = _summarise(run.idata, spec, study, stage, prob, interval, production)
+        summary = _summarise(run.idata, spec, study, stage, prob, interval, production, criteria)
         for key, value in summary.timings.items():
             timings[key] = timings.get(key, 0.0) + value
         # The first stage's sample is kept when it passes the gate, or when its chains
@@ -214,7 +213,7 @@ def fit_study(
         "spec_sha256": spec.sha256,
         "spec_text": spec.text,
         "parameterizations": parameterizations(spec, study),
-        "production": None if production is None else production.as_dict(),
+        "production": None if production is None else jsonable(production.as_dict()),
         "seed": settings.seed,
         "sampler_settings": settings.as_dict(),
         "compiled_model_reused": reused,
@@ -242,7 +241,42 @@ def fit_study(
         comparisons=comparisons,
         prior_sensitivity=sensitivity,
         prior_from=prior_from,
+        production=summary.production,
     )
+
+
+def _check_production(production, criteria, spec, study) -> None:
+    """Refuse, before sampling, a production file the model cannot use and production
+    criteria without one."""
+    from bayes_rr.core.errors import SpecError
+
+    if production is not None:
+        if not family_of(spec).takes_production:
+            raise SpecError(
+                f"{production.source}: production figures need a model with wrong-call rates "
+                f"(reference-logit, latent-class, call-curve), not {spec.name!r}; leave out "
+                "the production file, or fit one of those"
+            )
+        from bayes_rr.study.production import check_against_study
+
+        check_against_study(production, list(study.appraisers), study.source)
+        measured_model = "reference_value" in family_of(spec).info.needs
+        if production.has_measured and not measured_model:
+            raise SpecError(
+                f"{production.source}: a distribution of the measured value is used by the "
+                f"call-curve model only, not by {spec.name!r}; give bad_share instead"
+            )
+        if measured_model and not production.has_measured:
+            raise SpecError(
+                f"{production.source}: the {spec.name!r} model needs the distribution of the "
+                "measured value in production (mean and sd, or values), not a bad share"
+            )
+    wanted = [c for c in criteria if c.scope == "production"]
+    if wanted and production is None:
+        raise SpecError(
+            f"criterion {wanted[0].key!r} has scope 'production', but no production file was "
+            "given; add --production FILE (docs/statistics.md, production scope)"
+        )
 
 
 FIRST_STAGE_DRAWS = 1000
@@ -263,9 +297,10 @@ class _Summarised:
     parameter_rows: tuple
     diagnostics: Diagnostics
     timings: dict
+    production: dict | None
 
 
-def _summarise(raw, spec, study, settings, prob, interval, production) -> _Summarised:
+def _summarise(raw, spec, study, settings, prob, interval, production, criteria=()) -> _Summarised:
     """Estimands, summary rows and the convergence gate of one sample."""
     import arviz as az
 
@@ -274,7 +309,13 @@ def _summarise(raw, spec, study, settings, prob, interval, production) -> _Summa
     # (``*_log__``) are an implementation detail.
     posterior = raw.posterior[[v for v in raw.posterior.data_vars if not v.endswith("__")]]
     t0 = time.perf_counter()
-    latent = latent_draws(posterior, spec, study, seed=settings.seed, production=production)
+    latent = latent_draws(posterior, spec, study, seed=settings.seed)
+    line = None
+    if production is not None:
+        from bayes_rr.results.production import line_result
+
+        line = line_result(posterior, spec, study, production, settings.seed)
+        latent = replace(latent, extra={**latent.extra, **line.variables})
     estimands = compute_estimands(posterior, spec, study, settings.seed, latent=latent)
     observed, constant = _observed_groups(study)
     idata = az.InferenceData(
@@ -296,6 +337,11 @@ def _summarise(raw, spec, study, settings, prob, interval, production) -> _Summa
         modes=separate_modes(hyper),
         mode_advice=family_of(spec).mode_advice,
     )
+    document = None
+    if line is not None:
+        from bayes_rr.results.production import production_document
+
+        document = production_document(line, prob, tuple(criteria))
     timings["summaries_s"] = time.perf_counter() - t0
     return _Summarised(posterior, estimands, idata, limitations, estimand_rows,
-                       parameter_rows, diagnostics, timings)  # fmt: skip
+                       parameter_rows, diagnostics, timings, document)  # fmt: skip

@@ -118,6 +118,7 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     figures["appraisers"] = plots.appraiser_call_rates(summary["estimands"], prob=prob)
     compared = summary.get("comparisons") or {}
     figures["differences"] = plots.appraiser_differences(compared.get("pairs", []), prob=prob)
+    figures["strategies"] = plots.strategy_crosses(summary.get("strategies") or [], prob=prob)
     if checks is not None:
         figures["checks"] = plots.predictive_checks(checks["posterior_predictive"]["statistics"])
     return figures

@@ -20,6 +20,9 @@ Figures (medians over ``--repeats``; the machine is shared, so quote medians):
 * ``per_fit_s``: seconds per fit of ``--studies`` simulated studies of the demo's design
   fitted one after another in one process, for beta-binomial and crossed-logit, as
   ``bayes-rr fit`` samples (two stages) and with all its post-processing;
+* ``production_s``: seconds that the production figures and the strategies (default
+  set, with costs and a criterion) add to a demo fit: ``line_result`` and
+  ``production_document`` timed on the demo's posterior of 4 x 1,000 draws, in process;
 * with ``--large``: the large case of ``bench_sampling.py`` (ours and the baseline side
   by side, ESS per second and their ratio).
 """
@@ -45,6 +48,7 @@ TARGETS = {
     "per-fit s, beta-binomial": 1.0,
     "per-fit s, crossed-logit": 3.0,
     "demo folder MB": 15.0,
+    "production figures s, demo": 1.0,
 }
 
 
@@ -140,6 +144,38 @@ def per_fit(model: str, studies: int) -> dict:
             "studies": studies, "draws_a_chain": draws}  # fmt: skip
 
 
+def production_cost(repeats: int) -> dict:
+    """Seconds the production figures add to the demo fit (median over ``repeats``)."""
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.results.decisions import parse_criteria
+    from bayes_rr.results.production import line_result, production_document
+    from bayes_rr.study.data import read_study
+    from bayes_rr.study.describe import demo_path
+    from bayes_rr.study.production import parse_production
+    from bayes_rr.workflow.fit import fit_study
+
+    study = read_study(demo_path())
+    spec = load_spec("reference-logit")
+    fit = fit_study(study, spec, SamplerSettings.from_spec(spec, draws=1000, seed=1))
+    mix = parse_production(
+        "bad_share = [0.01, 0.04]\n[costs]\nfalse_reject = 12\nescape = 400\ncall = 0.5\n"
+    )
+    criteria = parse_criteria(
+        "[[criterion]]\nkey = 'escaped_per_million'\nscope = 'production'\nbelow = 500\n"
+        "required_probability = 0.95\n"
+    )
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        line = line_result(fit.idata.posterior, spec, study, mix, seed=1)
+        production_document(line, 0.95, criteria)
+        times.append(time.perf_counter() - t0)
+    return {"median_s": statistics.median(times), "runs_s": times,
+            "draws": int(fit.idata.posterior.sizes["chain"] * fit.idata.posterior.sizes["draw"]),
+            "strategies": len(line.strategies)}  # fmt: skip
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--json", action="store_true")
@@ -164,6 +200,7 @@ def main() -> None:
             },
             "repeat_compile_s": repeat_compile(args.repeats),
             "per_fit_s": {m: per_fit(m, args.studies) for m in ("beta-binomial", "crossed-logit")},
+            "production_s": production_cost(args.repeats),
         }
         if args.large:
             script = Path(__file__).with_name("bench_sampling.py")
@@ -186,6 +223,8 @@ def main() -> None:
         "per-fit s, crossed-logit": (figures["per_fit_s"]["crossed-logit"]["median_s"],
                                      TARGETS["per-fit s, crossed-logit"]),
         "demo folder MB": (demo["folder_mb"], TARGETS["demo folder MB"]),
+        "production figures s, demo": (figures["production_s"]["median_s"],
+                                       TARGETS["production figures s, demo"]),
     }  # fmt: skip
     if args.json:
         print(json.dumps(figures, indent=2))
