@@ -56,12 +56,12 @@ STRATEGIES = (
 
 def fixed_nodes(p_good: np.ndarray, p_bad: np.ndarray) -> CallNodes:
     """Every part of a status alike, no appraiser-by-part variation: each p_ij known."""
-    p = np.stack([p_good, p_bad])[None, :, None, :, None]  # (1 draw, 2, 1, J, 1)
-    return CallNodes(1, np.ones((2, 1)), np.ones(1), lambda block: p)
+    p = np.stack([p_good, p_bad])[:, None, None, :, None]  # (status, 1 draw, 1, J, 1)
+    return CallNodes(1, (np.ones(1), np.ones(1)), np.ones(1), lambda block, status: p[status])
 
 
 def figures(nodes, strategies=STRATEGIES, bad_share=0.1, shares=None):
-    j = nodes.probabilities(slice(0, 1)).shape[3]
+    j = nodes.probabilities(slice(0, 1), 0).shape[2]
     shares = np.full(j, 1 / j) if shares is None else shares
     return line_draws(nodes, np.array([bad_share]), shares, strategies).strategies
 
@@ -139,9 +139,10 @@ def test_no_bad_parts_no_escapes_and_perfect_appraisers_make_strategies_equal():
 @pytest.mark.parametrize("seed", range(5))
 def test_confirming_never_raises_good_rejected_and_k_of_n_is_monotone(seed):
     rng = np.random.default_rng(seed)
-    p = rng.uniform(0.01, 0.99, (1, 2, 6, 3, 4))
+    p = rng.uniform(0.01, 0.99, (2, 1, 6, 3, 4))
     inner = rng.dirichlet(np.ones(4))
-    nodes = CallNodes(1, rng.dirichlet(np.ones(6), 2), inner, lambda block: p)
+    weights = tuple(rng.dirichlet(np.ones(6), 2))
+    nodes = CallNodes(1, weights, inner, lambda block, status: p[status])
     got = figures(nodes)
     single = got["single"]["rejected_good_per_million"][0]
     for k in (1, 3):
@@ -155,8 +156,9 @@ def test_confirming_never_raises_good_rejected_and_k_of_n_is_monotone(seed):
 def test_probability_cheapest_sums_to_one_and_the_decision_follows_the_costs():
     rng = np.random.default_rng(1)
     draws = 40
-    p = rng.uniform(0.02, 0.98, (draws, 2, 3, 3, 1))
-    nodes = CallNodes(draws, np.full((2, 3), 1 / 3), np.ones(1), lambda block: p[block])
+    p = rng.uniform(0.02, 0.98, (2, draws, 3, 3, 1))
+    thirds = np.full(3, 1 / 3)
+    nodes = CallNodes(draws, (thirds, thirds), np.ones(1), lambda block, status: p[status, block])
     line = line_draws(nodes, rng.uniform(0.01, 0.05, draws), np.full(3, 1 / 3),
                       default_strategies(3))  # fmt: skip
     add_costs(line, Costs(false_reject=5.0, escape=500.0, call=0.1))
@@ -371,3 +373,56 @@ def test_fit_with_production_writes_rows_strategies_and_decision(demo_line):
         single["escaped_per_million"]["mean"])  # fmt: skip
     flat = " ".join(stdout.split())
     assert flat.index("escaped bad parts per million") < flat.index("study's parts")
+
+
+# ---------------------------------------------------------------------------
+# guard band of a call curve (docs/statistics.md, "Guard band")
+
+
+def curve_case(t=10.1, w=0.15):
+    import dataclasses
+
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.simulation.known_truth import simulate_call_curve
+
+    sim = simulate_call_curve(30, 1, 2, effective_limits=(10.0,), widths=(0.2,), seed=1)
+    spec = dataclasses.replace(load_spec("call-curve"), link="probit")
+    posterior = xr.Dataset({
+        "effective_limit": (("chain", "draw", "appraiser", "side"), np.full((1, 1, 1, 1), t)),
+        "transition_width": (("chain", "draw", "appraiser"), np.full((1, 1, 1), w)),
+    })  # fmt: skip
+    return sim.study, spec, posterior
+
+
+def probit_escaped(g, t, w, limit, mean, sd):
+    """Bad parts accepted per million with the gauge moved in by g, probit curve, normal
+    production: with V = X - w Z, accept is V < t - g, and P(accept, X > L) =
+    P(V < t - g) - P(X <= L, V < t - g) (scipy.stats.multivariate_normal)."""
+    cov = [[sd**2, sd**2], [sd**2, sd**2 + w**2]]
+    both = stats.multivariate_normal([mean, mean], cov).cdf([limit, t - g])
+    return 1e6 * (stats.norm.cdf(t - g, mean, np.sqrt(sd**2 + w**2)) - both)
+
+
+@pytest.mark.parametrize("target", [200.0, 2000.0])
+def test_guard_band_of_a_probit_curve_matches_the_bivariate_normal(target):
+    from scipy import optimize
+
+    from bayes_rr.results.decisions import Criterion
+    from bayes_rr.results.production import GUARD_RESOLUTION, guard_band, line_result
+    from bayes_rr.study.production import ProductionMix
+
+    t, w, mean, sd = 10.1, 0.15, 9.5, 0.3
+    study, spec, posterior = curve_case(t, w)
+    line = line_result(posterior, spec, study, ProductionMix(mean=mean, sd=sd), seed=0)
+    assert line.draws.strategies["single"]["escaped_per_million"][0] == pytest.approx(
+        probit_escaped(0.0, t, w, 10.0, mean, sd), rel=1e-3)  # fmt: skip
+    exact = optimize.brentq(lambda g: probit_escaped(g, t, w, 10.0, mean, sd) - target, 0, 3)
+    criterion = Criterion("escaped_per_million", "production", target, "below", 0.95)
+    found = guard_band(posterior, spec, study, line, criterion, 0.95)
+    scale = float(study.reference_value.std())
+    assert found["reachable"] and found["probability"] >= 0.95
+    assert found["shift"] == pytest.approx(exact, abs=2 * GUARD_RESOLUTION * scale)
+    assert found["rejected_good_added_per_million"]["mean"] > 0
+    # a threshold the limit already meets needs no band
+    easy = Criterion("escaped_per_million", "production", 1e6, "below", 0.95)
+    assert guard_band(posterior, spec, study, line, easy, 0.95)["shift"] == 0.0

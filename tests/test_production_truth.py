@@ -80,6 +80,13 @@ def test_call_curve_line_figures_hold_the_truth():
     # scipy.integrate.quad over the production distribution, each side of the limit
     good = integrate.quad(lambda x: reject(x) * density(x), mean - 10 * sd, 10.0)[0]
     bad = integrate.quad(lambda x: (1 - reject(x)) * density(x), 10.0, mean + 10 * sd)[0]
+    # the production distribution changes no study-scope row (issue: scopes named right)
+    plain = fit_study(sim.study, spec, SamplerSettings.from_spec(spec, draws=1000, seed=2))
+    study_rows = {(r.key, r.level, r.appraiser): r.mean for r in plain.estimand_rows
+                  if r.scope == "study"}  # fmt: skip
+    assert study_rows == {(r.key, r.level, r.appraiser): r.mean for r in result.estimand_rows
+                          if r.scope == "study"}  # fmt: skip
+    assert ("false_accept_rate", "system", None) in study_rows
     rows = production_rows(result)
     for key, value in (("rejected_good_per_million", 1e6 * good),
                        ("escaped_per_million", 1e6 * bad)):  # fmt: skip

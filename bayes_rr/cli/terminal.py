@@ -322,7 +322,7 @@ def print_line(summary: dict) -> None:
     # widths that keep each number on its line at 80 columns; headers wrap between words
     table.add_column("strategy", width=14)
     table.add_column("calls a part", justify="right", width=5)
-    table.add_column("escaped per million", justify="right", width=10)
+    table.add_column("escaped per million", justify="right", width=11)
     table.add_column("good rejected per million", justify="right", width=13)
     if costs:
         table.add_column("cost per 1,000", justify="right", width=9)
@@ -340,6 +340,10 @@ def print_line(summary: dict) -> None:
         out.print(f"  {row['name']}: {row['description']}")
     if summary.get("decision"):
         out.print(f"decision: {summary['decision']['sentence']}", style="bold")
+    if summary.get("guard_band"):
+        from bayes_rr.results.production import guard_band_sentence
+
+        out.print(f"guard band: {guard_band_sentence(summary)}")
     out.print(f"caution: {LINE_CAUTION}")
 
 

@@ -72,20 +72,20 @@ class CallNodes:
     """Call probabilities of the study's appraisers on production parts, at quadrature
     nodes (docs/statistics.md, "A production part and its calls").
 
-    ``probabilities(block)`` gives, for the posterior draws ``block`` (a slice), the
-    array (draws, status, part node, appraiser, inner node): status 0 good and 1 bad,
-    part nodes over a part's own variation within its status (``part_weight`` (2, G),
-    each row summing to 1), inner nodes over the appraiser-by-part variation
-    (``inner_weight`` (H,), summing to 1). Repeat calls of one appraiser are independent
-    given the inner node; different appraisers' calls are independent given the part
-    node. ``bad_share`` is set when the family's production input fixes it (a call
-    curve's production distribution of the measured value).
+    ``probabilities(block, status)`` gives, for the posterior draws ``block`` (a slice)
+    and parts of ``status`` (0 good, 1 bad), the array (draws, part node, appraiser,
+    inner node): part nodes over a part's own variation within its status
+    (``part_weight[status]``, summing to 1), inner nodes over the appraiser-by-part
+    variation (``inner_weight``, summing to 1). Repeat calls of one appraiser are
+    independent given the inner node; different appraisers' calls are independent given
+    the part node. ``bad_share`` is set when the family's production input fixes it (a
+    call curve's production distribution of the measured value).
     """
 
     draws: int
-    part_weight: np.ndarray
+    part_weight: tuple[np.ndarray, np.ndarray]
     inner_weight: np.ndarray
-    probabilities: Callable[[slice], np.ndarray]
+    probabilities: Callable[[slice, int], np.ndarray]
     bad_share: float | None = None
 
 
@@ -130,6 +130,10 @@ class Family:
     production_calls: Callable[..., CallNodes] | None = None
     """``(posterior, spec, study, mix)`` -> :class:`CallNodes`: the family's calls on
     production parts; None for a family without wrong-call rates."""
+    guard_band_scale: Callable[..., float] | None = None
+    """``(spec, study)`` -> the scale a guard band is searched on, for a family whose
+    ``production_calls`` takes ``guard`` (a gauge limit moved inward); None: no guard
+    band."""
     model_notes: tuple[str, ...] = ()
     """Sentences the report's model section adds about this family's assumptions."""
     cautions: tuple[str, ...] = ()

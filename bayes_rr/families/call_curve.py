@@ -222,9 +222,13 @@ def _study_wrong_calls(p, x, limits, signs) -> dict:
     }
 
 
-def production_calls(posterior: xr.Dataset, spec, study: StudyData, mix) -> CallNodes:
+def production_calls(
+    posterior: xr.Dataset, spec, study: StudyData, mix, guard: float = 0.0
+) -> CallNodes:
     """The study's appraisers on production parts: nodes over the production distribution
-    of the measured value, split at the limits into good and bad parts."""
+    of the measured value, split at the limits into good and bad parts. ``guard`` moves
+    the gauge's limits inward by that much (a guard band), and each appraiser's effective
+    limits with them; the parts' status still follows the specification limits."""
     if not mix.has_measured:
         raise DataError(
             f"{mix.source}: the call-curve model needs the distribution of the measured value "
@@ -234,7 +238,7 @@ def production_calls(posterior: xr.Dataset, spec, study: StudyData, mix) -> Call
     limits = np.array([value for _, value, _ in design["sides"]])
     signs = np.array([sign for _, _, sign in design["sides"]])
     production = Production(mix.mean, mix.sd, mix.values)
-    limit = draws_of(posterior, "effective_limit")
+    limit = draws_of(posterior, "effective_limit") - guard * signs
     width = draws_of(posterior, "transition_width")
     try:
         return production_nodes(limit, width, limits, signs, spec.link, production)
@@ -258,6 +262,11 @@ def hyper_parameters(spec: ModelSpec):
     return (*intercepts, *term_hyper_parameters(spec, SCALE_VARIABLES))
 
 
+def guard_scale(spec, study: StudyData) -> float:
+    """The measured values' spread in the study: the scale a guard band is searched on."""
+    return curve_design(study, spec.name)["scale"]
+
+
 FAMILY = Family(
     info=INFO,
     build=build,
@@ -268,4 +277,5 @@ FAMILY = Family(
     memory_per_draw=cell_memory,
     appraiser_rows=True,
     production_calls=production_calls,
+    guard_band_scale=guard_scale,
 )

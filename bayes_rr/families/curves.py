@@ -100,11 +100,12 @@ def production_nodes(
     bad = (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1)
     if not bad.any() or bad.all():
         raise ValueError("the production distribution has no parts on one side of the limits")
-    part_weight = np.stack([weight * ~bad / weight[~bad].sum(), weight * bad / weight[bad].sum()])
+    sides = (x[~bad], x[bad])
+    part_weight = (weight[~bad] / weight[~bad].sum(), weight[bad] / weight[bad].sum())
 
-    def probabilities(block: slice) -> np.ndarray:
-        p = curve_probabilities(effective_limit[block], width[block], x, signs, link)
-        return np.broadcast_to(p[:, None, :, :, None], (p.shape[0], 2, *p.shape[1:], 1))
+    def probabilities(block: slice, status: int) -> np.ndarray:
+        p = curve_probabilities(effective_limit[block], width[block], sides[status], signs, link)
+        return p[..., None]
 
     share = float(weight[bad].sum() / weight.sum())
     return CallNodes(width.shape[0], part_weight, np.ones(1), probabilities, bad_share=share)
@@ -125,7 +126,7 @@ def expected_rates(
     far = np.empty(width.shape)
     for start in range(0, width.shape[0], BLOCK):
         block = slice(start, start + BLOCK)
-        p = nodes.probabilities(block)[..., 0]  # (b, status, node, appraiser)
-        frr[block] = np.einsum("bgj,g->bj", p[:, 0], nodes.part_weight[0])
-        far[block] = 1.0 - np.einsum("bgj,g->bj", p[:, 1], nodes.part_weight[1])
+        good, bad = (nodes.probabilities(block, status)[..., 0] for status in (0, 1))
+        frr[block] = np.einsum("bgj,g->bj", good, nodes.part_weight[0])
+        far[block] = 1.0 - np.einsum("bgj,g->bj", bad, nodes.part_weight[1])
     return {"false_reject_rate": frr, "false_accept_rate": far}

@@ -182,11 +182,11 @@ def production_calls(posterior: xr.Dataset, spec, study: StudyData, mix) -> Call
     v, wv = (normal_nodes(INTERACTION_NODES) if "sigma_interaction" in posterior
              else (np.zeros(1), np.ones(1)))  # fmt: skip
 
-    def probabilities(block: slice) -> np.ndarray:
-        mu = d.intercept[block][:, :, None, None, None]
-        lean = np.transpose(d.appraiser_effect[block], (0, 2, 1))[:, :, None, :, None]
-        part = d.sigma_part[block][:, None, None, None, None] * u[None, None, :, None, None]
-        cell = d.sigma_interaction[block][:, None, None, None, None] * v
+    def probabilities(block: slice, status: int) -> np.ndarray:
+        mu = d.intercept[block, status][:, None, None, None]
+        lean = d.appraiser_effect[block, :, status][:, None, :, None]
+        part = d.sigma_part[block][:, None, None, None] * u[None, :, None, None]
+        cell = d.sigma_interaction[block][:, None, None, None] * v
         return expit(mu + lean + part + cell)
 
-    return CallNodes(d.intercept.shape[0], np.stack([wu, wu]), wv, probabilities)
+    return CallNodes(d.intercept.shape[0], (wu, wu), wv, probabilities)

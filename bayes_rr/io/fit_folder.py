@@ -259,11 +259,12 @@ def _production_blocks(result, ok: bool) -> dict:
     and the decision only for a sample that passed the gate."""
     document = getattr(result, "production", None)
     if document is None:
-        return {"production": None, "strategies": [], "decision": None}
+        return {"production": None, "strategies": [], "decision": None, "guard_band": None}
     return {
         "production": jsonable(document["production"]),
         "strategies": jsonable(document["strategies"]) if ok else [],
         "decision": jsonable(document["decision"]) if ok else None,
+        "guard_band": jsonable(document.get("guard_band")) if ok else None,
     }
 
 

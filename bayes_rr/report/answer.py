@@ -4,6 +4,7 @@ appraisers compared, and the glossary."""
 from __future__ import annotations
 
 from bayes_rr.core import glossary
+from bayes_rr.core.numbers import interval_text
 from bayes_rr.report.blocks import LIMITED_NOTES, ReportInputs, esc, figure_tag, html_table
 from bayes_rr.study.describe import reference_rows
 
@@ -48,7 +49,7 @@ def answer_box(inputs: ReportInputs) -> str:
                          _percent_interval(row)])  # fmt: skip
     from bayes_rr.report.line import line_lead
 
-    parts = [line_lead(summary)]
+    parts = [line_lead(summary), _limits_lead(summary)]
     if rows:
         parts.append(
             html_table(
@@ -75,6 +76,30 @@ def answer_box(inputs: ReportInputs) -> str:
     items += sentences(summary.get("prior_sensitivity") or {}, bool(earlier), HEADLINE_KEYS)
     parts.append("<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>")
     return "".join(parts)
+
+
+def _limits_lead(summary: dict) -> str:
+    """Call curves answer first where each appraiser puts the limit: effective limit and
+    bias, at the digits their intervals need."""
+    rows = {(r["key"], r["appraiser"]): r for r in summary["estimands"]
+            if r["scope"] == "study" and r["level"] == "appraiser"}  # fmt: skip
+    keys = sorted({k for k, _ in rows if k.startswith("effective_limit[")})
+    if not keys:
+        return ""
+    body = []
+    for name in summary["design"]["appraiser_names"]:
+        for key in keys:
+            side = key.split("side=")[1].rstrip("]")
+            bias = rows.get((key.replace("effective_limit", "bias"), name))
+            body.append([esc(name), esc(side), _value_interval(rows.get((key, name))),
+                         _value_interval(bias)])  # fmt: skip
+    return (
+        "<p>Where each appraiser puts the specification limit (posterior mean and "
+        f"{summary['prob']:.0%} interval, in the measured value's units):</p>"
+        + html_table(
+            ["appraiser", "limit", "effective limit", "bias (effective - limit)"], body, {2, 3}
+        )
+    )
 
 
 def glossary_section() -> str:
@@ -176,7 +201,7 @@ CURVE_COLUMNS = (("effective_limit", "effective limit"), ("bias", "bias (effecti
 def _value_interval(row: dict | None) -> str:
     if row is None or row.get("mean") is None:
         return "-"
-    return f"{row['mean']:.4g} ({row['lower']:.4g} to {row['upper']:.4g})"
+    return esc(interval_text(row["mean"], row["lower"], row["upper"]))
 
 
 def _curve_table(summary: dict) -> str:

@@ -109,5 +109,14 @@ def line_section(inputs: ReportInputs) -> str:
             if summary.get("decision")
             else "<p>No costs and no production criteria were given: figures only.</p>"
         )
+        + _guard_band(summary)
         + f"<p class='note'>{esc(LINE_CAUTION)}</p>"
     )
+
+
+def _guard_band(summary: dict) -> str:
+    if not summary.get("guard_band"):
+        return ""
+    from bayes_rr.results.production import guard_band_sentence
+
+    return f"<p><strong>Guard band:</strong> {esc(guard_band_sentence(summary))}</p>"

@@ -17,6 +17,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 from scipy import stats
 
+from bayes_rr.core.numbers import decimals_for, interval_text
+
 if TYPE_CHECKING:
     import xarray as xr
 
@@ -45,15 +47,17 @@ any of them, and ``cost_per_1000`` when costs are given)."""
 
 
 def _poisson_binomial_tail(p: np.ndarray, k: int) -> np.ndarray:
-    """P(at least k of the independent Bernoulli(p[..., m]) events), over the last axis."""
-    n = p.shape[-1]
-    dist = np.zeros((*p.shape[:-1], n + 1))
-    dist[..., 0] = 1.0
-    for m in range(n):
-        q = p[..., m, None]
-        shifted = np.concatenate([np.zeros_like(dist[..., :1]), dist[..., :-1]], axis=-1)
-        dist = dist * (1 - q) + shifted * q
-    return dist[..., k:].sum(axis=-1)
+    """P(at least k of the independent Bernoulli(p[..., m]) events), over the last axis.
+
+    Only counts below k are tracked (the tail is 1 minus their sum)."""
+    below = np.zeros((k, *p.shape[:-1]))  # below[c] = P(exactly c events so far), c < k
+    below[0] = 1.0
+    for m in range(p.shape[-1]):
+        q = p[..., m]
+        for c in range(k - 1, 0, -1):
+            below[c] = below[c] * (1 - q) + below[c - 1] * q
+        below[0] = below[0] * (1 - q)
+    return 1.0 - below.sum(axis=0)
 
 
 def part_outcome(
@@ -63,9 +67,10 @@ def part_outcome(
     the expected calls spent on it.
 
     ``p`` (..., appraiser, inner node): call probabilities; ``inner`` the inner nodes'
-    weights; ``shares`` the line's share of each appraiser. Returns two arrays (...).
+    weights (summing to 1); ``shares`` the line's share of each appraiser. Returns two arrays (...).
     """
-    mean_p = p @ inner  # (..., J): a single call, the inner effect averaged out
+    # (..., J): a single call, the inner effect averaged out
+    mean_p = p[..., 0] if inner.size == 1 else p @ inner
     ones = np.ones(mean_p.shape[:-1])
     if strategy.kind == "single":
         return mean_p @ shares, ones
@@ -129,29 +134,24 @@ def line_draws(
 ) -> LineDraws:
     """Every strategy's figures in every posterior draw, block by block."""
     n_app = shares.size
-    per_app = {"reject_good": np.empty((nodes.draws, n_app)),
-               "reject_bad": np.empty((nodes.draws, n_app))}  # fmt: skip
-    outcome = {s.name: np.empty((nodes.draws, 2, 2)) for s in strategies}  # (S, status, what)
-    w_part = nodes.part_weight
+    per_app = np.empty((2, nodes.draws, n_app))  # P(reject) of one call, by status
+    outcome = {s.name: np.empty((2, 2, nodes.draws)) for s in strategies}  # status, what
     for start in range(0, nodes.draws, BLOCK):
         block = slice(start, min(start + BLOCK, nodes.draws))
-        p = nodes.probabilities(block)  # (b, 2, G, J, H)
-        single = np.einsum("bsgjh,h,sg->bsj", p, nodes.inner_weight, w_part)
-        per_app["reject_good"][block] = single[:, 0]
-        per_app["reject_bad"][block] = single[:, 1]
-        for strategy in strategies:
-            rejected, calls = part_outcome(p, nodes.inner_weight, shares, strategy)
-            outcome[strategy.name][block, :, 0] = np.einsum("bsg,sg->bs", rejected, w_part)
-            outcome[strategy.name][block, :, 1] = np.einsum("bsg,sg->bs", calls, w_part)
+        for status in (0, 1):
+            p = nodes.probabilities(block, status)  # (b, G, J, H)
+            w_part = nodes.part_weight[status]
+            per_app[status, block] = np.einsum("bgjh,h,g->bj", p, nodes.inner_weight, w_part)
+            for strategy in strategies:
+                rejected, calls = part_outcome(p, nodes.inner_weight, shares, strategy)
+                outcome[strategy.name][status, 0, block] = rejected @ w_part
+                outcome[strategy.name][status, 1, block] = calls @ w_part
     s = bad_share
     figures = {}
     for name, out in outcome.items():
-        calls = (1 - s) * out[:, 0, 1] + s * out[:, 1, 1]
-        figures[name] = _line_figures(out[:, 0, 0], out[:, 1, 0], calls, s)
-    appraiser = {
-        "false_reject_rate": per_app["reject_good"],
-        "false_accept_rate": 1.0 - per_app["reject_bad"],
-    }
+        calls = (1 - s) * out[0, 1] + s * out[1, 1]
+        figures[name] = _line_figures(out[0, 0], out[1, 0], calls, s)
+    appraiser = {"false_reject_rate": per_app[0], "false_accept_rate": 1.0 - per_app[1]}
     return LineDraws(s, appraiser, figures)
 
 
@@ -292,8 +292,18 @@ def decision(rows: list[dict], has_costs: bool) -> dict | None:
             "sentence": f"{best['name']} ({best['description']}) has {why} {among}.",
         }
 
-    def closeness(row: dict) -> float:
-        return min(c["probability"] / c["required_probability"] for c in row["criteria"])
+    def excess(row: dict, check: dict) -> float:
+        """How far the figure's posterior mean is on the wrong side, in thresholds."""
+        side = "below" if "below" in check else "above"
+        mean = row["figures"][check["key"]]["mean"]
+        gap = mean - check[side] if side == "below" else check[side] - mean
+        return gap / max(abs(check[side]), 1e-12)
+
+    def closeness(row: dict) -> tuple[float, float]:
+        # the worst criterion's probability against the required one; where every
+        # strategy's probability is 0, the least excess of the posterior mean decides
+        ratio = min(c["probability"] / c["required_probability"] for c in row["criteria"])
+        return ratio, -max(excess(row, c) for c in row["criteria"])
 
     closest = max(rows, key=closeness)
     worst = min(closest["criteria"], key=lambda c: c["probability"] / c["required_probability"])
@@ -311,11 +321,126 @@ def decision(rows: list[dict], has_costs: bool) -> dict | None:
     }
 
 
-def production_document(line: LineResult, prob: float, criteria: tuple = ()) -> dict:
-    """The ``production``, ``strategies`` and ``decision`` blocks of summary.json."""
+GUARD_STEPS = 40
+"""Bisection steps of the guard band search (the bracket shrinks by 2**-40)."""
+GUARD_RESOLUTION = 1e-3
+"""The search stops when the bracket is narrower than this share of the study's spread
+of measured values."""
+
+
+def guard_band(
+    posterior: xr.Dataset, spec: ModelSpec, study: StudyData, line: LineResult,
+    criterion, prob: float,
+) -> dict | None:  # fmt: skip
+    """The least inward shift g of the gauge limit(s) (each appraiser's effective limit
+    moving with it) at which ``escaped_per_million`` is below the criterion's threshold
+    with at least its required probability, one call a part; and what it costs in good
+    parts rejected (docs/statistics.md, "Guard band"). None for a family without one or
+    without such a criterion."""
+    from bayes_rr.families import family_of
+    from bayes_rr.study.production import Strategy
+
+    family = family_of(spec)
+    if family.guard_band_scale is None or criterion is None:
+        return None
+    shares = line.mix.shares(list(study.appraisers))
+    single = (Strategy("single"),)
+
+    def figures(guard: float) -> dict:
+        nodes = family.production_calls(posterior, spec, study, line.mix, guard)
+        return line_draws(nodes, line.draws.bad_share, shares, single).strategies["single"]
+
+    def escaped(guard: float) -> np.ndarray:
+        # bad parts only: the search needs no good part's call
+        nodes = family.production_calls(posterior, spec, study, line.mix, guard)
+        accepted = np.empty(nodes.draws)
+        for start in range(0, nodes.draws, BLOCK):
+            block = slice(start, min(start + BLOCK, nodes.draws))
+            p = nodes.probabilities(block, 1)
+            one_call = p[..., 0] if nodes.inner_weight.size == 1 else p @ nodes.inner_weight
+            rejected = (one_call @ shares) @ nodes.part_weight[1]
+            accepted[block] = 1.0 - rejected
+        return MILLION * line.draws.bad_share * accepted
+
+    def meets(guard: float) -> bool:
+        return _meets(escaped(guard), criterion) >= criterion.required_probability
+
+    scale = family.guard_band_scale(spec, study)
+    low, high = 0.0, 0.05 * scale
+    at_zero = reachable = meets(0.0)
+    if not at_zero:
+        while not meets(high) and high < 10 * scale:
+            low, high = high, 2 * high
+        reachable = high < 10 * scale or meets(high)
+        for _ in range(GUARD_STEPS if reachable else 0):
+            if high - low < GUARD_RESOLUTION * scale:
+                break
+            middle = (low + high) / 2
+            low, high = (low, middle) if meets(middle) else (middle, high)
+    guard = 0.0 if at_zero else high
+    base, guarded = figures(0.0), figures(guard)
+    added = guarded["rejected_good_per_million"] - base["rejected_good_per_million"]
+    return {
+        "key": criterion.key,
+        "below": criterion.threshold,
+        "required_probability": criterion.required_probability,
+        "reachable": bool(reachable),
+        "shift": guard if reachable else None,
+        "searched_up_to": None if reachable else high,
+        "probability": _meets(guarded["escaped_per_million"], criterion),
+        "escaped_per_million": _figure(guarded["escaped_per_million"], prob),
+        "rejected_good_per_million": _figure(guarded["rejected_good_per_million"], prob),
+        "rejected_good_added_per_million": _figure(added, prob),
+    }
+
+
+def _guard_criterion(criteria: tuple):
+    for criterion in production_criteria(criteria):
+        if criterion.key == "escaped_per_million" and criterion.direction == "below":
+            return criterion
+    return None
+
+
+def production_document(
+    line: LineResult, prob: float, criteria: tuple = (), fit: tuple | None = None
+) -> dict:
+    """The ``production``, ``strategies``, ``decision`` and ``guard_band`` blocks of
+    summary.json; ``fit`` (posterior, spec, study) lets a call curve search its guard
+    band against a criterion on ``escaped_per_million``."""
     rows = strategy_rows(line, prob, criteria)
+    guard = None
+    if fit is not None:
+        guard = guard_band(*fit, line, _guard_criterion(criteria), prob)
     return {
         "production": {**line.mix.as_dict(), "bad_share_used": _figure(line.draws.bad_share, prob)},
         "strategies": rows,
         "decision": decision(rows, line.mix.costs is not None),
+        "guard_band": guard,
     }
+
+
+def guard_band_sentence(summary: dict) -> str:
+    """The guard band in one sentence: the shift, the gauge limits it gives, what it
+    keeps below the threshold and what it costs in good parts rejected."""
+    guard = summary["guard_band"]
+    target = (f"escaped bad parts per million below {guard['below']:g} with probability "
+              f"{guard['required_probability']:g}")  # fmt: skip
+    if not guard["reachable"]:
+        return (f"no inward shift of the gauge limit up to {guard['searched_up_to']:.4g} keeps "
+                f"{target}.")  # fmt: skip
+    shift = guard["shift"]
+    if shift == 0:
+        return f"none needed: the limit as it is keeps {target}."
+    scale = summary["design"].get("reference_value_range") or [0.0, 1.0]
+    decimals = decimals_for(0.0, 1e-3 * (scale[1] - scale[0]) or 1e-3)
+    limits = summary["design"].get("limits") or {}
+    moved = [f"{name} {value - shift:.{decimals}f}" if name == "upper"
+             else f"{name} {value + shift:.{decimals}f}"
+             for name, value in limits.items() if value is not None]  # fmt: skip
+    added = guard["rejected_good_added_per_million"]
+    return (
+        f"moving the gauge limit inward by {shift:.{decimals}f} (to {', '.join(moved)}) keeps "
+        f"{target} (reached: {guard['probability']:.3f}); it rejects "
+        f"{interval_text(added['mean'], added['lower'], added['upper'])} more good parts per "
+        "million."
+    )

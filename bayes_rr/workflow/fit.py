@@ -341,7 +341,7 @@ def _summarise(raw, spec, study, settings, prob, interval, production, criteria=
     if line is not None:
         from bayes_rr.results.production import production_document
 
-        document = production_document(line, prob, tuple(criteria))
+        document = production_document(line, prob, tuple(criteria), (posterior, spec, study))
     timings["summaries_s"] = time.perf_counter() - t0
     return _Summarised(posterior, estimands, idata, limitations, estimand_rows,
                        parameter_rows, diagnostics, timings, document)  # fmt: skip
