@@ -17,6 +17,7 @@ from helpers import write
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
+from bayes_rr.core.errors import OutputError
 from bayes_rr.io.fit_folder import MARKER, check_output_dir, write_fit
 
 runner = CliRunner()
@@ -256,3 +257,32 @@ def test_demo_checks_a_new_folder_without_creating_anything_first(tmp_path, monk
     result = runner.invoke(app, ["demo", "--out", str(tmp_path / "new"), "--quiet"])
     assert result.exit_code == 130 and calls, result.output
     assert (tmp_path / "new" / "demo_study.csv").is_file()
+
+
+def test_overwrite_refuses_a_fit_folder_holding_a_users_file(fits, tmp_path):
+    # A user's sign-off note inside a fit folder is not the toolkit's to delete.
+    out = write_fit(fits["beta-binomial"], tmp_path / "fit")
+    note = out / "sign-off.txt"
+    note.write_text("approved by QA")
+    with pytest.raises(OutputError) as err:
+        check_output_dir(out, overwrite=True)
+    assert "'sign-off.txt'" in str(err.value)
+    with pytest.raises(OutputError):
+        write_fit(fits["beta-binomial"], out, overwrite=True)
+    assert note.read_text() == "approved by QA"
+    # a report the toolkit wrote, and its checks, are its own: replaced without a word
+    note.unlink()
+    (out / "checks.json").write_text('{"generator": "bayes-rr 0"}\n')
+    (out / "report.html").write_text('<meta name="generator" content="bayes-rr 0">')
+    write_fit(fits["beta-binomial"], out, overwrite=True)
+    # but a report.html of someone else's is not
+    (out / "report.html").write_text("<p>my own notes</p>")
+    with pytest.raises(OutputError, match=r"report\.html"):
+        check_output_dir(out, overwrite=True)
+
+
+def test_a_fit_folder_inside_a_fit_folder_is_refused(fits, tmp_path):
+    outer = write_fit(fits["beta-binomial"], tmp_path / "earlier")
+    with pytest.raises(OutputError, match="inside the fit folder"):
+        check_output_dir(outer / "sub")
+    assert not (outer / "sub").exists()

@@ -154,10 +154,47 @@ def check_output_dir(
                 "--overwrite will not replace it",
                 "choose a new folder",
             )
+        foreign = foreign_entries(out_dir)
+        if foreign:
+            shown = ", ".join(repr(name) for name in foreign[:3])
+            more = f" and {len(foreign) - 3} more" if len(foreign) > 3 else ""
+            raise _fail(
+                out_dir,
+                f"is a fit folder, but it also holds {shown}{more}, which bayes-rr did not "
+                "write; --overwrite replaces the whole folder, so it will not",
+                "move those files out first, or choose a new folder",
+            )
+    for parent in target.parents:
+        if (parent / MARKER).is_file():
+            raise _fail(
+                out_dir,
+                f"lies inside the fit folder {parent}, which a later --overwrite of that "
+                "folder would replace with everything in it",
+                "choose a folder outside every fit folder",
+            )
     if not out_dir.exists():
         check_location(out_dir)
     else:
         check_location(out_dir / "x")
+
+
+OWN_EXTRA = ("checks.json",)
+"""Files the later steps write into a fit folder (besides :data:`FILES`); a
+``report.html`` counts when it carries the toolkit's generator mark."""
+
+
+def foreign_entries(folder: Path) -> list[str]:
+    """Names in a fit folder that the toolkit did not write (what ``--overwrite`` must
+    not delete): anything beyond its own files, a report it did not write, any folder."""
+    own = {*FILES, *OWN_EXTRA}
+    out = []
+    for entry in sorted(Path(folder).iterdir()):
+        if entry.is_file() and not entry.is_symlink() and entry.name in own:
+            continue
+        if entry.name == "report.html" and entry.is_file() and written_by_toolkit(entry):
+            continue
+        out.append(entry.name + ("/" if entry.is_dir() else ""))
+    return out
 
 
 def written_by_toolkit(path: Path) -> bool:
