@@ -80,12 +80,8 @@ def run_fit(
     names one of the same family and terms, and its criteria unless ``criteria`` is
     given.
     """
-    from bayes_rr.inference.sampling import SamplerSettings
-    from bayes_rr.io.fit_folder import check_output_dir, summary_document, write_fit
+    from bayes_rr.io.fit_folder import check_output_dir
     from bayes_rr.priors.spec import load_spec
-    from bayes_rr.study.classical import classical_statistics
-    from bayes_rr.study.data import read_study
-    from bayes_rr.workflow.fit import fit_study
 
     if interval not in ("hdi", "eti"):
         raise DataError(f"--interval {interval!r}: expected 'hdi' or 'eti'")
@@ -95,6 +91,7 @@ def run_fit(
 
     wanted = load_criteria(criteria) if criteria is not None else ()
     check_keys(wanted)
+    spec = None
     if model is not None:
         spec = load_spec(model)  # a bad spec is reported before the data are read
     earlier = None
@@ -115,31 +112,40 @@ def run_fit(
             wanted = criteria_from_rows(loaded.summary["criteria"], str(prior_from))
             check_keys(wanted)
             out.print(f"criteria: the {len(wanted)} of the earlier fit")
-    interrupts.checkpoint("reading", str(data))
-    study = read_study(data, options)
-    if model is None and prior_from is None:
-        model, why = default_model(study)
-        out.print(f"model: {why}")
-        spec = load_spec(model)
-    settings = SamplerSettings.from_spec(
-        spec,
-        draws=draws,
-        tune=tune,
-        chains=chains,
-        seed=seed,
-        target_accept=target_accept,
-        sampler=sampler,
-        progress=_in_terminal(quiet),
-    )
-    classical = classical_statistics(study, prob).as_dict()
-    result = fit_study(
-        study, spec, settings, prob=prob, interval=interval, production=production,
-        criteria=wanted, prior_from=earlier, two_stage=draws is None,
-    )  # fmt: skip
-    interrupts.checkpoint("writing", str(out_dir))
-    write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=protected,
-              keep_all_draws=keep_all_draws)  # fmt: skip
-    return summary_document(result), classical
+    from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.io.fit_folder import claimed, summary_document, write_fit
+    from bayes_rr.study.classical import classical_statistics
+    from bayes_rr.study.data import read_study
+    from bayes_rr.workflow.fit import fit_study
+
+    # Claimed before the long work: a second run into the same folder is refused now,
+    # not after both have sampled.
+    with claimed(out_dir):
+        interrupts.checkpoint("reading", str(data))
+        study = read_study(data, options)
+        if model is None and prior_from is None:
+            model, why = default_model(study)
+            out.print(f"model: {why}")
+            spec = load_spec(model)
+        settings = SamplerSettings.from_spec(
+            spec,
+            draws=draws,
+            tune=tune,
+            chains=chains,
+            seed=seed,
+            target_accept=target_accept,
+            sampler=sampler,
+            progress=_in_terminal(quiet),
+        )
+        classical = classical_statistics(study, prob).as_dict()
+        result = fit_study(
+            study, spec, settings, prob=prob, interval=interval, production=production,
+            criteria=wanted, prior_from=earlier, two_stage=draws is None,
+        )  # fmt: skip
+        interrupts.checkpoint("writing", str(out_dir))
+        write_fit(result, out_dir, overwrite=overwrite, classical=classical, protected=protected,
+                  keep_all_draws=keep_all_draws)  # fmt: skip
+        return summary_document(result), classical
 
 
 @handles_errors

@@ -23,10 +23,12 @@ Nothing the toolkit did not write is replaced: see :func:`check_output_dir` and
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
@@ -140,7 +142,14 @@ def check_output_dir(
     for path in protected:
         if _is_within(Path(path).resolve(), target):
             raise _fail(out_dir, f"holds the input {path}", "give a new folder for the results")
-    if out_dir.is_dir() and any(out_dir.iterdir()):
+    owner = claim_owner(out_dir)
+    if owner is not None and owner != os.getpid():
+        raise _fail(
+            out_dir,
+            f"another bayes-rr run (process {owner}) is writing its results there",
+            "wait for it to finish, or choose another folder",
+        )
+    if out_dir.is_dir() and any(e.name != CLAIM for e in out_dir.iterdir()):
         if not overwrite:
             raise _fail(
                 out_dir,
@@ -178,6 +187,72 @@ def check_output_dir(
         check_location(out_dir / "x")
 
 
+CLAIM = ".bayes-rr-claim"
+"""A file a run puts into its output folder before it samples (holding its process id),
+so a second run into the same folder is refused instead of racing it."""
+
+
+def claim_owner(folder: Path) -> int | None:
+    """The process id of a live run that claimed ``folder``, or None."""
+    try:
+        pid = json.loads((Path(folder) / CLAIM).read_text()).get("pid")
+    except (OSError, ValueError, AttributeError):
+        return None
+    return pid if _pid_alive(pid) else None
+
+
+def claim_output_dir(out_dir: Path) -> bool:
+    """Claim ``out_dir`` for this run, atomically, before any long work: create it (if
+    new) and the claim file inside with exclusive creation; a run that finds either
+    taken is refused. Returns whether the folder was created here (see
+    :func:`release_claim`). The claim goes when the results are moved into place."""
+    out_dir = Path(out_dir)
+    created = False
+    taken = _fail(out_dir, "another bayes-rr run has just claimed it",
+                  "wait for that run to finish, or choose another folder")  # fmt: skip
+    if not out_dir.exists():
+        try:
+            out_dir.mkdir()
+            created = True
+        except FileExistsError:
+            raise taken from None
+        except OSError as exc:
+            raise _fail(out_dir, f"cannot be created ({exc.strerror})",
+                        "choose a folder you can write to") from None  # fmt: skip
+    claim = out_dir / CLAIM
+    if claim.exists() and claim_owner(out_dir) is None:
+        claim.unlink(missing_ok=True)  # left by a run that no longer exists
+    try:
+        fd = os.open(claim, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+    except FileExistsError:
+        raise taken from None
+    with os.fdopen(fd, "w") as fh:
+        fh.write(dumps({"generator": GENERATOR, "pid": os.getpid()}) + "\n")
+    return created
+
+
+def release_claim(out_dir: Path, created: bool) -> None:
+    """Undo :func:`claim_output_dir` after a run that wrote nothing: remove our claim,
+    and the folder when this run created it and it holds nothing else."""
+    out_dir = Path(out_dir)
+    if claim_owner(out_dir) == os.getpid():
+        (out_dir / CLAIM).unlink(missing_ok=True)
+    if created:
+        with contextlib.suppress(OSError):
+            out_dir.rmdir()
+
+
+@contextlib.contextmanager
+def claimed(out_dir: Path) -> Iterator[None]:
+    """Hold the claim on ``out_dir`` for the block; a block that fails releases it."""
+    created = claim_output_dir(out_dir)
+    try:
+        yield
+    except BaseException:
+        release_claim(out_dir, created)
+        raise
+
+
 OWN_EXTRA = ("checks.json",)
 """Files the later steps write into a fit folder (besides :data:`FILES`); a
 ``report.html`` counts when it carries the toolkit's generator mark."""
@@ -186,7 +261,7 @@ OWN_EXTRA = ("checks.json",)
 def foreign_entries(folder: Path) -> list[str]:
     """Names in a fit folder that the toolkit did not write (what ``--overwrite`` must
     not delete): anything beyond its own files, a report it did not write, any folder."""
-    own = {*FILES, *OWN_EXTRA}
+    own = {*FILES, *OWN_EXTRA, CLAIM}
     out = []
     for entry in sorted(Path(folder).iterdir()):
         if entry.is_file() and not entry.is_symlink() and entry.name in own:
@@ -444,6 +519,10 @@ def calls_table(study) -> pd.DataFrame:
 
 
 def _move_into_place(tmp: Path, out_dir: Path) -> None:
+    owner = claim_owner(out_dir)
+    if owner is not None and owner != os.getpid():
+        raise _fail(out_dir, f"another bayes-rr run (process {owner}) claimed it meanwhile",
+                    "choose another folder")  # fmt: skip
     if out_dir.is_dir():
         old = _new_folder(out_dir.parent, f".{out_dir.name}.old-")
         os.replace(out_dir, old / "previous")
