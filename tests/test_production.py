@@ -290,6 +290,8 @@ def test_a_range_becomes_the_matching_beta():
         ("bad_share = 0.02\nmean = 10\nsd = 1", "both given"),
         ("costs = 3", "no bad_share"),
         ("bad_share = 0.02\nstratum = 1", "unknown key"),
+        ("bad_share = 0.02\nstrata = { a = 1.0 }", "both given"),
+        ("strata = { a = 0.5, b = 0.2 }", "0.7"),
     ],
 )
 def test_bad_production_files_are_refused_quoting_the_value(text, quoted):
@@ -426,3 +428,67 @@ def test_guard_band_of_a_probit_curve_matches_the_bivariate_normal(target):
     # a threshold the limit already meets needs no band
     easy = Criterion("escaped_per_million", "production", 1e6, "below", 0.95)
     assert guard_band(posterior, spec, study, line, easy, 0.95)["shift"] == 0.0
+
+
+# ---------------------------------------------------------------------------
+# strata (docs/statistics.md, "Strata")
+
+STRATIFIED = (
+    "part,appraiser,call,reference,stratum\n"
+    + "".join(
+        f"{part},{app},{call},{ref},{stratum}\n"
+        for part, ref, stratum in (("P1", "pass", "clear"), ("P2", "pass", "clear"),
+                                   ("P3", "pass", "edge"), ("P4", "fail", "edge"),
+                                   ("P5", "fail", "edge"), ("P6", "fail", "clear"))
+        for app, call in (("A", "pass"), ("B", "fail"))
+    )
+)  # fmt: skip
+
+
+def test_strata_reweight_the_study_parts_to_production(tmp_path):
+    from bayes_rr.families.reference_logit import stratified_calls
+    from bayes_rr.study.data import read_study
+
+    data = tmp_path / "s.csv"
+    data.write_text(STRATIFIED)
+    study = read_study(data)
+    assert study.design()["strata"] == {"clear": 3, "edge": 3}
+    mix = parse_production("strata = { clear = 0.9, edge = 0.1 }\n")
+    mu, a = np.array([-2.0, 1.5]), np.array([0.3, -0.2, 0.5, 0.1, -0.4, 0.8])
+    b = np.array([[0.2, -0.3], [-0.1, 0.4]])
+    posterior = xr.Dataset({
+        "intercept": (("chain", "draw", "status"), mu[None, None]),
+        "part_effect": (("chain", "draw", "part"), a[None, None]),
+        "appraiser_effect": (("chain", "draw", "appraiser", "status"), b[None, None]),
+    })  # fmt: skip
+    nodes = stratified_calls(posterior, None, study, mix, np.random.default_rng(0))
+    got = figures(nodes, (Strategy("single"),), bad_share=nodes.bad_share)["single"]
+    # by hand: part weight = stratum share / parts of that stratum in the study
+    status = np.array([0, 0, 0, 1, 1, 1])
+    weight = np.array([0.3, 0.3, 0.1 / 3, 0.1 / 3, 0.1 / 3, 0.3])
+    p = expit(mu[status][:, None] + a[:, None] + b[:, status].T).mean(axis=1)
+    good, bad = status == 0, status == 1
+    assert nodes.bad_share == pytest.approx(weight[bad].sum())
+    frr = (weight[good] * p[good]).sum() / weight[good].sum()
+    accepted_bad = (weight[bad] * (1 - p[bad])).sum()
+    assert got["false_reject_rate"][0] == pytest.approx(frr)
+    assert got["escaped_per_million"][0] == pytest.approx(1e6 * accepted_bad)
+
+
+@pytest.mark.parametrize(
+    ("text", "quoted"),
+    [
+        ("strata = { clear = 0.9, rework = 0.1 }", "['rework']"),
+        ("strata = { clear = 1.0 }", "['edge']"),
+    ],
+)
+def test_strata_must_match_the_data(tmp_path, text, quoted):
+    data = tmp_path / "s.csv"
+    data.write_text(STRATIFIED)
+    line = tmp_path / "line.toml"
+    line.write_text(text + "\n")
+    out = tmp_path / "fit"
+    result = runner.invoke(app, ["fit", str(data), "--out", str(out), "--production", str(line),
+                                 "--quiet"])  # fmt: skip
+    assert result.exit_code == 2, result.output
+    assert quoted in result.stderr and not out.exists()

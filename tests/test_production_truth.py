@@ -91,3 +91,34 @@ def test_call_curve_line_figures_hold_the_truth():
     for key, value in (("rejected_good_per_million", 1e6 * good),
                        ("escaped_per_million", 1e6 * bad)):  # fmt: skip
         assert rows[key].lower <= value <= rows[key].upper, (key, value, rows[key])
+
+
+def test_a_stratified_study_reweighted_to_production_recovers_its_figures():
+    import dataclasses
+
+    import pandas as pd
+
+    sim = simulate_status_logit(60, 3, 3, mu_accept=-2.0, mu_reject=2.0, sigma_part=1.2,
+                                sigma_appraiser=(0.6, 0.6), sigma_interaction=0.2,
+                                reject_share=0.4, seed=8)  # fmt: skip
+    # the parts were picked from two groups: near the limit (small |effect|) or clear
+    edge = np.abs(sim.params["part_effect"]) < 0.6
+    stratum = pd.Series(np.where(edge, "edge", "clear"), index=list(sim.study.parts))
+    study = dataclasses.replace(sim.study, stratum=stratum)
+    shares = {"clear": 0.9, "edge": 0.1}
+    spec = load_spec("reference-logit")
+    mix = ProductionMix(strata=tuple(shares.items()))
+    result = fit_study(study, spec, SamplerSettings.from_spec(spec, draws=1000, seed=4),
+                       production=mix)  # fmt: skip
+    assert result.diagnostics.ok
+    # truth: the same reweighting of the study's parts with their true call probabilities
+    weight = np.array([shares[s] / (stratum == s).sum() for s in stratum])
+    status = sim.params["status"]
+    one_call = sim.p.mean(axis=1)  # an appraiser chosen equally
+    truth = {
+        "escaped_per_million": 1e6 * (weight * (status == 1) * (1 - one_call)).sum(),
+        "rejected_good_per_million": 1e6 * (weight * (status == 0) * one_call).sum(),
+    }
+    rows = production_rows(result)
+    for key, value in truth.items():
+        assert rows[key].lower <= value <= rows[key].upper, (key, value, rows[key])

@@ -130,6 +130,10 @@ class Family:
     production_calls: Callable[..., CallNodes] | None = None
     """``(posterior, spec, study, mix)`` -> :class:`CallNodes`: the family's calls on
     production parts; None for a family without wrong-call rates."""
+    stratified_calls: Callable[..., CallNodes] | None = None
+    """``(posterior, spec, study, mix, rng)`` -> :class:`CallNodes` over the study's own
+    parts, weighted to production's strata (a family with each part's known status);
+    None: strata cannot be reweighted."""
     guard_band_scale: Callable[..., float] | None = None
     """``(spec, study)`` -> the scale a guard band is searched on, for a family whose
     ``production_calls`` takes ``guard`` (a gauge limit moved inward); None: no guard

@@ -24,6 +24,7 @@ from bayes_rr.core.moments import (
 )
 from bayes_rr.families import forward
 from bayes_rr.families.base import (
+    CallNodes,
     Family,
     LatentDraws,
     cell_index,
@@ -218,6 +219,34 @@ def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np
     return probabilities(posterior, study, rng)[0][:, part, app]
 
 
+def stratified_calls(posterior: xr.Dataset, spec, study: StudyData, mix, rng) -> CallNodes:
+    """Production as the study's own parts, reweighted to production's strata
+    (docs/statistics.md, "Strata"): part i weighs share(s(i)) / (parts of s(i)); its
+    calls are the model's p_ij in each draw (an uncalled cell's interaction effect
+    from its prior given the draw's scale)."""
+    p = probabilities(posterior, study, rng)[0]  # (S, part, appraiser)
+    status = study.reference.to_numpy().astype(int)
+    stratum = study.stratum.to_numpy()
+    shares = mix.stratum_shares()
+    counts = {name: int((stratum == name).sum()) for name in shares}
+    weight = np.array([shares[s] / counts[s] for s in stratum])
+    parts = [np.flatnonzero((status == r) & (weight > 0)) for r in (0, 1)]
+    for r, which in enumerate(parts):
+        if which.size == 0:
+            kind = "bad" if r else "good"
+            raise DataError(
+                f"{mix.source}: no {kind} part in the strata with a share of production; "
+                f"a stratum with {kind} parts needs a share above 0"
+            )
+    part_weight = tuple(weight[which] / weight[which].sum() for which in parts)
+
+    def calls(block: slice, r: int) -> np.ndarray:
+        return p[block][:, parts[r], :, None]
+
+    bad_share = float(weight[parts[1]].sum() / weight.sum())
+    return CallNodes(p.shape[0], part_weight, np.ones(1), calls, bad_share=bad_share)
+
+
 FAMILY = Family(
     info=INFO,
     build=build,
@@ -233,4 +262,5 @@ FAMILY = Family(
     simulated_with_reference=True,
     default_plan_target="study__system__false_accept_rate",
     production_calls=production_calls,
+    stratified_calls=stratified_calls,
 )

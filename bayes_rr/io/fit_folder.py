@@ -512,6 +512,8 @@ def calls_table(study) -> pd.DataFrame:
     if study.reference_value is not None:
         # repr keeps every digit, so the data hash matches when the folder is read back
         table["reference_value"] = table["part"].map(study.reference_value).map(repr)
+    if study.stratum is not None:
+        table["stratum"] = table["part"].map(study.stratum)
     for role, limit in zip(("lower_limit", "upper_limit"), study.limits, strict=True):
         if limit is not None:
             table[role] = repr(float(limit))

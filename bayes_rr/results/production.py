@@ -196,7 +196,12 @@ def line_result(
     from bayes_rr.families import family_of
     from bayes_rr.study.production import default_strategies
 
-    nodes = family_of(spec).production_calls(posterior, spec, study, mix)
+    family = family_of(spec)
+    if mix.strata is not None:
+        rng = np.random.default_rng([seed, 21])
+        nodes = family.stratified_calls(posterior, spec, study, mix, rng)
+    else:
+        nodes = family.production_calls(posterior, spec, study, mix)
     if nodes.bad_share is not None:
         bad_share = np.full(nodes.draws, nodes.bad_share)
     else:

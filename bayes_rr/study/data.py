@@ -127,6 +127,8 @@ def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) 
                 accept_labels=options.accept_labels,
             )
         values = values.assign(**{role: coded})
+    elif role == "stratum":
+        values = values.assign(**{role: values[role].astype(str).str.strip()})
     else:
         numeric = pd.to_numeric(values[role].str.strip(), errors="coerce")
         if numeric.isna().any():
@@ -179,13 +181,17 @@ def study_hash(
     reference: pd.Series | None,
     ref_value: pd.Series | None,
     limits: tuple[float | None, float | None] = (None, None),
+    stratum: pd.Series | None = None,
 ) -> str:
     """SHA-256 of a canonical text of the study (sorted, labels as 0/1)."""
     digest = hashlib.sha256()
     digest.update(b"bayes-rr study v1\n")
     for row in calls[["part", "appraiser", "trial", "call"]].itertuples(index=False):
         digest.update(f"{row[0]}\t{row[1]}\t{row[2]}\t{int(row[3])}\n".encode())
-    for name, series in (("reference", reference), ("reference_value", ref_value)):
+    named = [("reference", reference), ("reference_value", ref_value)]
+    if stratum is not None:  # (studies without strata keep their earlier hash)
+        named.append(("stratum", stratum))
+    for name, series in named:
         if series is not None:
             digest.update(f"#{name}\n".encode())
             for part in sorted(series.index, key=natural_key):
@@ -204,6 +210,7 @@ def build_study(
     notes: Sequence[str] = (),
     ignored_columns: Sequence[str] = (),
     limits: tuple[float | None, float | None] = (None, None),
+    stratum: pd.Series | None = None,
 ) -> StudyData:
     """Assemble :class:`StudyData` from validated calls (part, appraiser, trial, call 0/1)."""
     parts = tuple(sorted(long["part"].unique(), key=natural_key))
@@ -242,6 +249,9 @@ def build_study(
     if reference_value is not None:
         reference_value = reference_value.reindex(list(parts)).astype(float)
         reference_value.index.name = "part"
+    if stratum is not None:
+        stratum = stratum.reindex(list(parts)).astype(str)
+        stratum.index.name = "part"
     return StudyData(
         calls=calls,
         cells=cells,
@@ -250,10 +260,11 @@ def build_study(
         reference=reference,
         reference_value=reference_value,
         source=source,
-        sha256=study_hash(calls, reference, reference_value, limits),
+        sha256=study_hash(calls, reference, reference_value, limits, stratum),
         notes=tuple(notes),
         ignored_columns=tuple(ignored_columns),
         limits=limits,
+        stratum=stratum,
     )
 
 
@@ -290,6 +301,7 @@ def study_from_frame(
     long, call_notes = _validated_calls(long, options, source)
     reference = _per_part(long, "reference", source, options)
     reference_value = _per_part(long, "reference_value", source, options)
+    stratum = _per_part(long, "stratum", source, options)
     limits = _limits(long, source, options)
     ignored = tuple(c for c in frame.columns if c not in used)
     all_notes = [*notes, *call_notes]
@@ -307,6 +319,7 @@ def study_from_frame(
         notes=all_notes,
         ignored_columns=ignored,
         limits=limits,
+        stratum=stratum,
     )
 
 

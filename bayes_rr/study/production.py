@@ -104,6 +104,7 @@ class ProductionMix:
     bad_share_range: tuple[float, float] | None = None
     bad_share_beta: tuple[float, float] | None = None
     appraiser_shares: tuple[tuple[str, float], ...] | None = None
+    strata: tuple[tuple[str, float], ...] | None = None
     mean: float | None = None
     sd: float | None = None
     values: tuple[float, ...] | None = None
@@ -114,6 +115,9 @@ class ProductionMix:
     @property
     def has_bad_share(self) -> bool:
         return self.bad_share is not None or self.bad_share_beta is not None
+
+    def stratum_shares(self) -> dict[str, float]:
+        return dict(self.strata or ())
 
     @property
     def has_measured(self) -> bool:
@@ -134,7 +138,10 @@ class ProductionMix:
         return np.array([given.get(name, 0.0) for name in appraisers])
 
     def describe(self) -> str:
-        if self.bad_share is not None:
+        if self.strata is not None:
+            groups = ", ".join(f"{name} {value:g}" for name, value in self.strata)
+            share = f"the study's parts reweighted to production's strata ({groups})"
+        elif self.bad_share is not None:
             share = f"bad share {self.bad_share:g}"
         elif self.bad_share_range is not None:
             low, high = self.bad_share_range
@@ -154,6 +161,7 @@ class ProductionMix:
             "bad_share": self.bad_share,
             "bad_share_range": None if self.bad_share_range is None else list(self.bad_share_range),
             "bad_share_beta": None if self.bad_share_beta is None else list(self.bad_share_beta),
+            "strata": None if self.strata is None else dict(self.strata),
             "appraiser_shares": None
             if self.appraiser_shares is None
             else dict(self.appraiser_shares),
@@ -226,16 +234,16 @@ def _bad_share(value: object, source: str) -> dict:
     return {"bad_share": _number(value, "bad_share", source, 0.0, 1.0)}
 
 
-def _shares(value: object, source: str) -> tuple[tuple[str, float], ...]:
+def _shares(value: object, source: str, key: str = "appraiser_shares"):
     if not isinstance(value, dict) or not value:
-        raise _fail(source, f"appraiser_shares = {value!r}: expected a table name = share")
+        raise _fail(source, f"{key} = {value!r}: expected a table name = share")
     shares = tuple(
-        (str(name), _number(share, f"appraiser_shares.{name}", source, 0.0, 1.0))
+        (str(name), _number(share, f"{key}.{name}", source, 0.0, 1.0))
         for name, share in value.items()
     )
     total = sum(share for _, share in shares)
     if abs(total - 1) > 1e-6:
-        raise _fail(source, f"appraiser_shares sum to {total:g}: expected 1")
+        raise _fail(source, f"{key} sum to {total:g}: expected 1")
     return shares
 
 
@@ -286,7 +294,7 @@ def _strategy(table: object, k: int, source: str) -> Strategy:
     return Strategy(kind, k=whole["k"], n=whole["n"])
 
 
-TOP_KEYS = {"bad_share", "appraiser_shares", "mean", "sd", "values", "costs", "strategy"}
+TOP_KEYS = {"bad_share", "appraiser_shares", "strata", "mean", "sd", "values", "costs", "strategy"}
 
 
 def parse_production(text: str, source: str = "<production>", base: Path | None = None):
@@ -311,6 +319,14 @@ def parse_production(text: str, source: str = "<production>", base: Path | None 
         found.update(_bad_share(table["bad_share"], source))
     if "appraiser_shares" in table:
         found["appraiser_shares"] = _shares(table["appraiser_shares"], source)
+    if "strata" in table:
+        found["strata"] = _shares(table["strata"], source, "strata")
+        if "bad_share" in table:
+            raise _fail(
+                source,
+                "bad_share and strata were both given; with strata the share of bad parts "
+                "follows from each stratum's share and its parts' reference statuses: give one",
+            )
     if "mean" in table or "sd" in table:
         if "mean" not in table or "sd" not in table:
             raise _fail(source, "give both mean and sd of the measured value in production")
@@ -328,7 +344,7 @@ def parse_production(text: str, source: str = "<production>", base: Path | None 
             "bad_share and a distribution of the measured value were both given; the "
             "distribution and the limit already fix the share of bad parts: give one",
         )
-    if "bad_share" not in table and "mean" not in found and "values" not in found:
+    if not {"bad_share", "strata"} & set(table) and "mean" not in found and "values" not in found:
         raise _fail(source, "no bad_share: give the share of bad parts in production "
                     "(bad_share = 0.02, or a 95% range bad_share = [0.01, 0.04])")  # fmt: skip
     if "costs" in table:
@@ -364,8 +380,25 @@ def read_production(path: str | Path) -> ProductionMix:
     return parse_production(text, str(path), path.parent)
 
 
-def check_against_study(mix: ProductionMix, appraisers: list[str], source: str) -> None:
-    """Refuse shares of appraisers the study lacks and strategies it cannot staff."""
+def check_against_study(
+    mix: ProductionMix, appraisers: list[str], source: str, strata: list[str] | None = None
+) -> None:
+    """Refuse shares of appraisers the study lacks, strategies it cannot staff, and
+    strata that differ from the data's (``strata``: the study's stratum names)."""
+    if mix.strata is not None:
+        if strata is None:
+            raise DataError(
+                f"{mix.source}: strata are given, but {source} has no stratum column; add one "
+                "(the group each part was picked from) or leave strata out"
+            )
+        named = {name for name, _ in mix.strata}
+        only_file, only_data = sorted(named - set(strata)), sorted(set(strata) - named)
+        if only_file or only_data:
+            raise DataError(
+                f"{mix.source}: strata {only_file} are not in {source}, and its strata "
+                f"{only_data} have no share; give a share to each stratum of the data, and "
+                "only to those"
+            )
     if mix.appraiser_shares is not None:
         named = [name for name, _ in mix.appraiser_shares]
         missing = sorted(set(named) - set(appraisers))

@@ -22,8 +22,9 @@ ROLES = (
     "reference_value",
     "lower_limit",
     "upper_limit",
+    "stratum",
 )
-PER_PART_ROLES = ("reference", "reference_value", "lower_limit", "upper_limit")
+PER_PART_ROLES = ("reference", "reference_value", "lower_limit", "upper_limit", "stratum")
 
 # Column names recognised without an option, compared after lower-casing and
 # dropping everything but letters and digits.
@@ -46,6 +47,7 @@ COLUMN_SYNONYMS: dict[str, tuple[str, ...]] = {
         "referencemeasurement",
     ),
     "lower_limit": ("lowerlimit", "lsl", "lowerspec", "lowerspecificationlimit", "lowerlimitvalue"),
+    "stratum": ("stratum", "strata", "stratumname", "partgroup", "selectiongroup"),
     "upper_limit": ("upperlimit", "usl", "upperspec", "upperspecificationlimit", "upperlimitvalue"),
 }  # fmt: skip
 
@@ -169,6 +171,9 @@ class StudyData:
     notes: tuple[str, ...] = ()
     ignored_columns: tuple[str, ...] = ()
     limits: tuple[float | None, float | None] = (None, None)
+    stratum: pd.Series | None = None
+    """Per part, the group its part was picked from (a ``stratum`` column), or None:
+    production figures can reweight the groups to their shares of production."""
     """(lower, upper) specification limits of the reference value; None where absent."""
 
     @property
@@ -208,6 +213,11 @@ class StudyData:
                 else None
             ),
             "limits": {"lower": self.limits[0], "upper": self.limits[1]},
+            "strata": (
+                {str(k): int(v) for k, v in self.stratum.value_counts().sort_index().items()}
+                if self.stratum is not None
+                else None
+            ),
             "data_sha256": self.sha256,
             "ignored_columns": list(self.ignored_columns),
             "notes": list(self.notes),

@@ -259,7 +259,14 @@ def _check_production(production, criteria, spec, study) -> None:
             )
         from bayes_rr.study.production import check_against_study
 
-        check_against_study(production, list(study.appraisers), study.source)
+        strata = None if study.stratum is None else sorted(set(study.stratum))
+        check_against_study(production, list(study.appraisers), study.source, strata)
+        if production.strata is not None and family_of(spec).stratified_calls is None:
+            raise SpecError(
+                f"{production.source}: strata are reweighted from the study's parts of known "
+                f"status; the {spec.name!r} model has none (use reference-logit, with a "
+                "reference status per part), or leave strata out"
+            )
         measured_model = "reference_value" in family_of(spec).info.needs
         if production.has_measured and not measured_model:
             raise SpecError(
