@@ -492,3 +492,41 @@ def test_strata_must_match_the_data(tmp_path, text, quoted):
                                  "--quiet"])  # fmt: skip
     assert result.exit_code == 2, result.output
     assert quoted in result.stderr and not out.exists()
+
+
+# ---------------------------------------------------------------------------
+# planning against production figures
+
+
+def test_plan_refuses_production_it_cannot_use(tmp_path):
+    from bayes_rr.api.planning import plan_request
+    from bayes_rr.simulation.plan import check_request
+
+    line = tmp_path / "line.toml"
+    line.write_text("bad_share = 0.02\n")
+    with pytest.raises(SpecError, match="wrong-call"):
+        check_request(plan_request("crossed-logit", production=line))
+    with pytest.raises(SpecError, match="--production"):
+        check_request(plan_request("reference-logit", target_key="escaped_per_million"))
+    strata = tmp_path / "strata.toml"
+    strata.write_text("strata = { a = 1.0 }\n")
+    with pytest.raises(SpecError, match="no strata"):
+        check_request(plan_request("reference-logit", production=strata))
+
+
+@pytest.mark.slow
+def test_plan_gives_the_assurance_of_a_production_criterion(tmp_path):
+    from bayes_rr.api.planning import plan
+
+    line = tmp_path / "line.toml"
+    line.write_text("bad_share = 0.02\n")
+    criteria = tmp_path / "c.toml"
+    criteria.write_text("[[criterion]]\nkey = 'escaped_per_million'\nscope = 'production'\n"
+                        "below = 1000000\nrequired_probability = 0.5\n")  # fmt: skip
+    document = plan(tmp_path / "plan", "reference-logit", parts=20, appraisers=3, trials=2,
+                    sims=3, production=line, criteria=criteria, workers=1)  # fmt: skip
+    row = document["designs"][0]
+    # a threshold of a million per million is met by every converged fit
+    assert row["assurance"] == pytest.approx(row["fits_converged"] / 3)
+    assert row["expected_width"]["production__system__escaped_per_million"] > 0
+    assert document["production"]["bad_share"] == 0.02

@@ -33,6 +33,7 @@ def plan_request(
     target_assurance: float | None = None,
     target_key: str | None = None,
     draws: int | None = None,
+    production=None,
     option_prefix: str = "",
 ):
     """The :class:`~bayes_rr.simulation.plan.PlanRequest` of a plan, checked (counts as
@@ -53,8 +54,13 @@ def plan_request(
         part_mix,
     )
     earlier = None if prior_from is None else str(prior_from)
+    if isinstance(production, (str, Path)):
+        from bayes_rr.study.production import read_production
+
+        production = read_production(production)
     return PlanRequest(spec, tuple(grid), sims, seed, wanted, target_width, target_assurance,
-                       target_key, earlier_folder=earlier, draws=draws)  # fmt: skip
+                       target_key, earlier_folder=earlier, draws=draws,
+                       production=production)  # fmt: skip
 
 
 def plan(
@@ -71,7 +77,8 @@ def plan(
     returns it (``document["designs"]`` is a row per design). ``design`` takes the
     keywords of :func:`plan_request`: ``parts``, ``appraisers``, ``trials``, ``part_mix``,
     ``sims``, ``seed``, ``prior_from``, ``criteria``, ``target_width``,
-    ``target_assurance``, ``target_key``, ``draws``."""
+    ``target_assurance``, ``target_key``, ``draws``, ``production`` (a production file:
+    the fits give production figures that criteria and targets may name)."""
     from bayes_rr.simulation.plan import run_plan
 
     request = plan_request(model, **design)

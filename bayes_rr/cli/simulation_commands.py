@@ -86,6 +86,13 @@ def plan(
         Path | None,
         Col("--prior-from", help="An earlier fit folder: simulate from its posterior."),
     ] = None,
+    production: Annotated[
+        Path | None,
+        Col(
+            "--production",
+            help="What you know of the line (TOML, as for fit): plans for escapes per million.",
+        ),
+    ] = None,
     criteria: Annotated[
         Path | None, Col("--criteria", help="Acceptance criteria (TOML): gives assurance.")
     ] = None,
@@ -117,7 +124,7 @@ def plan(
         model, parts=parts, appraisers=appraisers, trials=trials, part_mix=part_mix,
         sims=sims, seed=seed, prior_from=prior_from, criteria=criteria,
         target_width=target_width, target_assurance=target_assurance, target_key=target_key,
-        draws=draws, option_prefix="--",
+        draws=draws, production=production, option_prefix="--",
     )  # fmt: skip
     spec, wanted = request.spec, request.criteria
     document = _resumable(

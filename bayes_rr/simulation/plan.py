@@ -42,6 +42,9 @@ class PlanRequest:
     earlier_folder: str | None = None
     draws: int | None = None
     tune: int | None = None
+    production: object | None = None
+    """A ProductionMix: the simulated fits give production figures, and criteria and
+    targets may name them."""
 
 
 def default_target_key(spec: ModelSpec) -> str:
@@ -79,13 +82,37 @@ def check_request(request: PlanRequest) -> None:
                             "of simulated studies in which every criterion is met")  # fmt: skip
     if request.target_width is not None and request.target_assurance is not None:
         raise SpecError("give --target-width or --target-assurance, not both")
+    _check_production(request)
+
+
+def _check_production(request: PlanRequest) -> None:
+    """A production file suits a model with wrong-call rates and no strata (simulated
+    studies have none); production criteria and targets need one."""
+    from bayes_rr.families import family_of
+
+    mix = request.production
+    wanted = [c.key for c in request.criteria if c.scope == "production"]
+    if request.target_key and resolve_target_key(request.target_key, request.spec).startswith(
+        "production__"
+    ):
+        wanted.append(request.target_key)
+    if mix is None:
+        if wanted:
+            raise SpecError(f"{wanted[0]!r} is a production figure: give --production FILE")
+        return
+    if not family_of(request.spec).takes_production:
+        raise SpecError(f"{mix.source}: production figures need a model with wrong-call "
+                        f"rates, not {request.spec.name!r}")  # fmt: skip
+    if mix.strata is not None:
+        raise SpecError(f"{mix.source}: simulated studies have no strata; give bad_share "
+                        "for planning")  # fmt: skip
 
 
 def plan_task(payload: dict) -> dict:
     """One simulated study fitted: the widths of the planned results and whether every
     criterion was met."""
     fit, estimands = quick_fit(payload["study"], payload["spec"], payload["settings"],
-                               PLAN_KEYS)  # fmt: skip
+                               PLAN_KEYS, payload.get("production"))  # fmt: skip
     widths = {}
     for key in PLAN_KEYS:
         if key in fit.draws:
@@ -122,7 +149,8 @@ def _tasks(request: PlanRequest, earlier_posterior, analysis_spec: ModelSpec):
             settings = simulation_settings(analysis_spec, seed, draws=request.draws,
                                            tune=request.tune)  # fmt: skip
             payload = {"spec": analysis_spec, "study": sim.study(k), "settings": settings,
-                       "criteria": request.criteria, "prob": request.prob}  # fmt: skip
+                       "criteria": request.criteria, "prob": request.prob,
+                       "production": request.production}  # fmt: skip
             describe = {**design.as_dict(), "simulation": k + 1, "seed": seed}
             tasks.append(Task(f"d{d:02d}-s{k:04d}", payload, describe))
     return tasks, simulated
@@ -219,6 +247,7 @@ def run_plan(
         "designs": [d.as_dict() for d in request.designs], "sims": request.sims,
         "seed": request.seed, "prob": request.prob, "earlier": earlier,
         "criteria": [c.__dict__ for c in request.criteria],
+        "production": None if request.production is None else request.production.as_dict(),
         "sampler": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains},
     }  # fmt: skip
     prepare_run_dir(out, "plan", signature(run_settings))

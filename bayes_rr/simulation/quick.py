@@ -40,8 +40,11 @@ PLAN_KEYS = (
     "study__study__repeat_disagreement",
     "study__system__false_reject_rate",
     "study__system__false_accept_rate",
+    "production__system__escaped_per_million",
+    "production__system__rejected_good_per_million",
 )
-"""Results whose interval width a plan reports (those the model has)."""
+"""Results whose interval width a plan reports (those the model has; the production
+figures with a production file)."""
 CALIBRATED_KEYS = (
     "study__study__call_rate",
     "study__study__repeatability_variance",
@@ -104,10 +107,11 @@ def hyper_variables(posterior: xr.Dataset) -> list[str]:
 
 
 def quick_fit(
-    study: StudyData, spec: ModelSpec, settings: SamplerSettings, keys: tuple[str, ...]
-) -> tuple[QuickFit, xr.Dataset]:
+    study: StudyData, spec: ModelSpec, settings: SamplerSettings, keys: tuple[str, ...],
+    production=None,
+) -> tuple[QuickFit, xr.Dataset]:  # fmt: skip
     """Fit ``study``; returns the draws of ``keys`` and the hyper-parameters, and the
-    posterior (for the ranks of the hyper-parameters)."""
+    estimands (with ``production``, a ProductionMix, the production-scope ones too)."""
     import arviz as az
 
     from bayes_rr.families import build_model
@@ -123,6 +127,13 @@ def quick_fit(
     raw = run.idata.posterior
     posterior = raw[[v for v in raw.data_vars if not v.endswith("__")]]
     latent = latent_draws(posterior, spec, study, seed=settings.seed)
+    if production is not None:
+        from dataclasses import replace
+
+        from bayes_rr.results.production import line_result
+
+        line = line_result(posterior, spec, study, production, settings.seed)
+        latent = replace(latent, extra={**latent.extra, **line.variables})
     estimands = compute_estimands(posterior, spec, study, settings.seed, latent=latent)
     draws = scalar_draws(estimands, keys)
     draws.update(scalar_draws(posterior, hyper_variables(posterior)))
