@@ -289,7 +289,7 @@ def test_a_fit_folder_inside_a_fit_folder_is_refused(fits, tmp_path):
 
 
 def test_a_claimed_folder_is_refused_to_a_second_run(tmp_path):
-    from bayes_rr.io.fit_folder import CLAIM, claim_output_dir, claimed
+    from bayes_rr.io.output_safety import CLAIM, claim_output_dir, claimed
 
     out = tmp_path / "fit"
     assert claim_output_dir(out) is True

@@ -113,7 +113,8 @@ def run_fit(
             check_keys(wanted)
             out.print(f"criteria: the {len(wanted)} of the earlier fit")
     from bayes_rr.inference.sampling import SamplerSettings
-    from bayes_rr.io.fit_folder import claimed, summary_document, write_fit
+    from bayes_rr.io.fit_folder import summary_document, write_fit
+    from bayes_rr.io.output_safety import claimed
     from bayes_rr.study.classical import classical_statistics
     from bayes_rr.study.data import read_study
     from bayes_rr.workflow.fit import fit_study
