@@ -30,7 +30,12 @@ from bayes_rr.families.base import (
     optional_draws,
     term_hyper_parameters,
 )
-from bayes_rr.families.curves import Production, curve_probabilities, production_nodes
+from bayes_rr.families.curves import (
+    Production,
+    curve_probabilities,
+    known_status,
+    production_nodes,
+)
 from bayes_rr.families.layout import coords, curve_design
 from bayes_rr.families.status import study_rates
 from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
@@ -196,11 +201,6 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDra
     }
     extra.update(_study_wrong_calls(p, design["x"], limits, signs))
     return LatentDraws(p, {}, log_lik, extra)
-
-
-def known_status(x: np.ndarray, limits: np.ndarray, signs: np.ndarray) -> np.ndarray:
-    """1 for a part beyond a limit (bad), else 0: the status a measured value gives."""
-    return (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1).astype(float)
 
 
 def _study_wrong_calls(p, x, limits, signs) -> dict:

@@ -57,15 +57,6 @@ class Production:
         if self.values is None and (self.mean is None or self.sd is None or not self.sd > 0):
             raise ValueError("a production distribution needs a mean and a positive sd, or values")
 
-    def describe(self) -> str:
-        if self.values is not None:
-            return f"{len(self.values)} measured production values"
-        return f"normal, mean {self.mean:g}, sd {self.sd:g}"
-
-    def as_dict(self) -> dict:
-        return {"mean": self.mean, "sd": self.sd,
-                "values": None if self.values is None else len(self.values)}  # fmt: skip
-
     def nodes(self, limits: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Nodes and weights of the production distribution (weights sum to about 1)."""
         if self.values is not None:
@@ -86,6 +77,11 @@ class Production:
         return np.concatenate(xs), np.concatenate(ws)
 
 
+def known_status(x: np.ndarray, limits: np.ndarray, signs: np.ndarray) -> np.ndarray:
+    """1 for a part beyond a limit (bad), else 0: the status a measured value gives."""
+    return (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1).astype(float)
+
+
 def production_nodes(
     effective_limit: np.ndarray,
     width: np.ndarray,
@@ -97,7 +93,7 @@ def production_nodes(
     """The appraisers' call probabilities at the nodes of the production distribution,
     split at the limits into good parts (status 0) and bad parts beyond a limit (1)."""
     x, weight = production.nodes(limits)
-    bad = (signs[None, :] * (x[:, None] - limits[None, :]) > 0).any(axis=1)
+    bad = known_status(x, limits, signs).astype(bool)
     if not bad.any() or bad.all():
         raise ValueError("the production distribution has no parts on one side of the limits")
     sides = (x[~bad], x[bad])

@@ -38,8 +38,10 @@ LINE_KEYS = (
     "shipped_bad_share",
     "calls_per_part",
 )
-"""The figures of a strategy on the line (a criterion with scope production may name
-any of them, and ``cost_per_1000`` when costs are given)."""
+"""The figures of a strategy on the line."""
+ROW_KEYS = LINE_KEYS[:5]
+"""Those that are production-scope estimand rows (of the single strategy), which
+criteria with scope production may name."""
 
 
 # ---------------------------------------------------------------------------
@@ -220,7 +222,7 @@ def line_result(
         ("production", "appraiser", key): (values, "appraiser")
         for key, values in draws.appraiser.items()
     }
-    for key in LINE_KEYS[:-1]:
+    for key in ROW_KEYS:
         variables[("production", "system", key)] = (system[key], None)
     variables[("production", "system", "bad_share")] = (bad_share, None)
     return LineResult(variables, draws, mix, strategies)
