@@ -34,7 +34,8 @@ def test_normal_prior_factor_is_the_conjugate_likelihood():
     (0.4/0.2^2 - 0)/precision (normal-normal conjugacy)."""
     draws = stats.norm(0.4, 0.2).rvs(size=40_000, random_state=np.random.default_rng(0))
     prior = Prior("normal", (("sigma", 1.5), ("mu", 0.0)))
-    mu, sigma, _, _, gap = approximate(draws, prior, "identity")
+    mu, sigma, _, _, gap, widened = approximate(draws, prior, "identity")
+    assert not widened
     precision = 1 / 0.2**2 - 1 / 1.5**2
     assert mu == pytest.approx((0.4 / 0.2**2) / precision, abs=0.01)
     assert sigma == pytest.approx(precision**-0.5, rel=0.02)
@@ -46,7 +47,8 @@ def test_scale_draws_are_reproduced_on_the_log_scale():
     draws' quantiles to within 0.02 in probability (the tolerance the notes state)."""
     draws = stats.lognorm(0.3, scale=np.exp(-0.5)).rvs(size=20_000, random_state=1)
     prior = Prior("half_normal", (("sigma", 1.0),))
-    mu, _, mean, sd, gap = approximate(draws, prior, "log")
+    mu, _, mean, sd, gap, widened = approximate(draws, prior, "log")
+    assert not widened
     assert mu is not None
     assert gap < 0.02
     assert mean == pytest.approx(-0.5, abs=0.01)
@@ -56,7 +58,7 @@ def test_scale_draws_are_reproduced_on_the_log_scale():
 def test_draws_like_the_prior_carry_no_factor():
     prior = Prior("half_normal", (("sigma", 1.0),))
     draws = stats.halfnorm(0, 1.0).rvs(size=20_000, random_state=2)
-    mu, sigma, _, _, gap = approximate(draws, prior, "log")
+    mu, sigma, _, _, gap, _ = approximate(draws, prior, "log")
     assert mu is None and sigma is None
     assert gap <= 0.02
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -46,30 +47,52 @@ def check_location(path: Path) -> None:
     """The place a new file or folder ``path`` would be created in must be a writable folder.
 
     Checked before any work, so a run never reads, compiles and samples only to
-    find that it cannot write its results.
+    find that it cannot write its results. Folders are named as the user wrote them
+    (relative stays relative).
     """
     parent = path.absolute().parent
+
+    def shown(folder: Path) -> str:
+        if folder == parent:
+            return str(path.parent)
+        return str(folder) if path.is_absolute() else os.path.relpath(folder)
+
     if not parent.exists():
         missing = parent
         while not missing.parent.exists():
             missing = missing.parent
         if missing.parent.is_dir() or missing.parent == missing:
-            raise _fail(path, f"the folder {parent} does not exist", "create it first, or choose "
-                        "another place")  # fmt: skip
-        raise _fail(path, f"{missing.parent} is a file, not a folder", "choose another place")
+            raise _fail(path, f"the folder {shown(parent)} does not exist",
+                        "create it first, or choose another place")  # fmt: skip
+        raise _fail(path, f"{shown(missing.parent)} is a file, not a folder",
+                    "choose another place")  # fmt: skip
     if not parent.is_dir():
-        raise _fail(path, f"{parent} is a file, not a folder", "choose another place")
+        raise _fail(path, f"{shown(parent)} is a file, not a folder", "choose another place")
     if not os.access(parent, os.W_OK | os.X_OK):
         try:
             read_only = bool(os.statvfs(parent).f_flag & os.ST_RDONLY)
         except OSError:
             read_only = False
         why = (
-            f"{parent} is on a read-only file system"
+            f"{shown(parent)} is on a read-only file system"
             if read_only
-            else f"no permission to write in {parent}"
+            else f"no permission to write in {shown(parent)}"
         )
         raise _fail(path, why, "choose a folder you can write to")
+    _probe(path, parent, shown(parent))
+
+
+def _probe(path: Path, parent: Path, name: str) -> None:
+    # Permission bits can say yes where writing fails (root on /sys or /proc, a full
+    # disk, some network mounts): create and remove a small file to be sure.
+    try:
+        fd, probe = tempfile.mkstemp(prefix=".bayes-rr-probe-", dir=parent)
+    except OSError as exc:
+        raise _fail(path, f"nothing can be created in {name} ({exc.strerror})",
+                    "choose a folder you can write to") from None  # fmt: skip
+    os.close(fd)
+    with contextlib.suppress(OSError):
+        os.unlink(probe)
 
 
 def _is_within(inner: Path, outer: Path) -> bool:
@@ -151,11 +174,7 @@ so a second run into the same folder is refused instead of racing it."""
 
 def claim_owner(folder: Path) -> int | None:
     """The process id of a live run that claimed ``folder``, or None."""
-    try:
-        pid = json.loads((Path(folder) / CLAIM).read_text()).get("pid")
-    except (OSError, ValueError, AttributeError):
-        return None
-    return pid if _pid_alive(pid) else None
+    return _lock_owner(Path(folder) / CLAIM)
 
 
 def claim_output_dir(out_dir: Path) -> bool:
@@ -208,6 +227,55 @@ def claimed(out_dir: Path) -> Iterator[None]:
     except BaseException:
         release_claim(out_dir, created)
         raise
+
+
+@contextlib.contextmanager
+def holding(out_dir: Path) -> Iterator[None]:
+    """Hold the claim on a run folder (``plan``, ``calibrate``, ``batch``) for the whole
+    run: a second run into the same folder is refused while this one lives. The claim
+    goes when the block ends, however it ends."""
+    created = claim_output_dir(out_dir)
+    try:
+        yield
+    finally:
+        release_claim(out_dir, created)
+
+
+LOCK_SUFFIX = ".bayes-rr-lock"
+
+
+@contextlib.contextmanager
+def file_lock(path: Path) -> Iterator[None]:
+    """Hold ``path`` (a report, a comparison, a spec) for one run: a lock file beside
+    it, created exclusively, so a second run writing the same file is refused in one
+    line instead of racing the first. A lock left by a run that died is taken over."""
+    path = Path(path)
+    lock = path.with_name("." + path.name + LOCK_SUFFIX)
+    if lock.exists() and _lock_owner(lock) is None:
+        lock.unlink(missing_ok=True)
+    try:
+        fd = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+    except FileExistsError:
+        raise _fail(path, "another bayes-rr run is writing it",
+                    "wait for that run to finish, or give another file name") from None  # fmt: skip
+    except OSError as exc:
+        raise _fail(path, f"cannot be written ({exc.strerror})",
+                    "choose a folder you can write to") from None  # fmt: skip
+    with os.fdopen(fd, "w") as fh:
+        fh.write(dumps({"generator": GENERATOR, "pid": os.getpid()}) + "\n")
+    try:
+        yield
+    finally:
+        if _lock_owner(lock) == os.getpid():
+            lock.unlink(missing_ok=True)
+
+
+def _lock_owner(lock: Path) -> int | None:
+    try:
+        pid = json.loads(lock.read_text()).get("pid")
+    except (OSError, ValueError, AttributeError):
+        return None
+    return pid if _pid_alive(pid) else None
 
 
 OWN_EXTRA = ("checks.json",)

@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 from scipy import optimize
 
+from bayes_rr.core import tomlio
 from bayes_rr.core.distributions import Prior
 from bayes_rr.core.errors import SpecError
 from bayes_rr.priors.hyperpriors import (
@@ -48,6 +49,13 @@ GRID_POINTS = 4001
 PRIOR_ENOUGH = 0.02
 """When the stated prior alone is within this quantile gap of the earlier draws, the
 earlier study added nothing measurable about the parameter and no factor is written."""
+FALLBACK_GAP = 0.1
+"""A fitted factor whose quantile gap exceeds this, or a fit that fails (a small earlier
+study's draws can be as wide as the prior, or pressed against a bound), is replaced by
+a wider one: N(draws' mean, WIDEN x draws' sd). Prior x that factor is wider than the
+earlier posterior, so the earlier study counts for less than in full, never for more;
+model.toml and summary.json say so."""
+WIDEN = 2.0
 MARK = "# ---- earlier study as prior (written by bayes-rr; see [earlier_study]) ----"
 
 
@@ -65,6 +73,8 @@ class Approximation:
     quantile_gap: float
     """Largest |F(q_p) - p| over QUANTILE_LEVELS, F the distribution function of (*)
     and q_p the earlier draws' quantiles: 0 is a perfect match."""
+    widened: bool = False
+    """The fitted factor failed or matched badly; the wider fallback is used."""
 
     @property
     def label(self) -> str:
@@ -93,16 +103,18 @@ def _gap(log_p: np.ndarray, grid: np.ndarray, quantiles: np.ndarray, levels) -> 
 
 def approximate(
     draws: np.ndarray, prior: Prior, scale: str
-) -> tuple[float | None, float | None, float, float, float]:
+) -> tuple[float | None, float | None, float, float, float, bool]:
     """(mu, sigma) of the factor for ``draws`` of one hyper-parameter (None, None when the
     stated prior alone already reproduces the draws), the draws' mean and sd on the
-    unconstrained scale, and the quantile gap of the approximation.
+    unconstrained scale, the quantile gap of the approximation, and whether the wider
+    fallback factor was used (see FALLBACK_GAP).
 
     (mu, sigma) minimise the squared gaps between the distribution function of
     prior x factor and the probability levels FIT_LEVELS at the draws' quantiles:
     closer in the tails than matching mean and sd, and always defined (a scale whose
     earlier posterior presses against its prior's upper tail has no Gaussian factor
-    with the draws' mean and sd).
+    with the draws' mean and sd). The fit starts from three places (the normal-normal
+    answer, the draws' moments, a wider factor), each kept inside the bounds.
     """
     u = to_unconstrained(np.asarray(draws, dtype=float).ravel(), scale)
     u = u[np.isfinite(u)]
@@ -114,23 +126,49 @@ def approximate(
     report_q = np.quantile(u, QUANTILE_LEVELS)
     prior_gap = float(np.max(np.abs(_gap(log_prior, grid, report_q, QUANTILE_LEVELS))))
     if prior_gap <= PRIOR_ENOUGH:
-        return None, None, m, s, prior_gap
-    m0, s0, _ = _moments(log_prior, grid)
-    precision = 1 / s**2 - 1 / max(s0, 1e-12) ** 2
-    if precision > 0:
-        start = np.array([(m / s**2 - m0 / s0**2) / precision, -0.5 * np.log(precision)])
-    else:
-        start = np.array([m, np.log(s)])
+        return None, None, m, s, prior_gap, False
 
     def residual(x: np.ndarray) -> np.ndarray:
         factor = -0.5 * ((grid - x[0]) / np.exp(x[1])) ** 2
         return _gap(log_prior + factor, grid, fit_q, FIT_LEVELS)
 
-    x = optimize.least_squares(residual, start, bounds=([-50, np.log(s) - 8], [50, 8])).x
-    mu, sigma = float(x[0]), float(np.exp(x[1]))
-    log_approx = log_prior - 0.5 * ((grid - mu) / sigma) ** 2
-    gap = float(np.max(np.abs(_gap(log_approx, grid, report_q, QUANTILE_LEVELS))))
-    return mu, sigma, m, s, gap
+    def gap_of(mu: float, sigma: float) -> float:
+        log_approx = log_prior - 0.5 * ((grid - mu) / sigma) ** 2
+        return float(np.max(np.abs(_gap(log_approx, grid, report_q, QUANTILE_LEVELS))))
+
+    best = _least_squares(residual, _starts(m, s, log_prior, grid), np.log(s))
+    if best is not None:
+        mu, sigma = float(best[0]), float(np.exp(best[1]))
+        gap = gap_of(mu, sigma)
+        if gap <= FALLBACK_GAP:
+            return mu, sigma, m, s, gap, False
+    return m, WIDEN * s, m, s, gap_of(m, WIDEN * s), True
+
+
+def _starts(m: float, s: float, log_prior: np.ndarray, grid: np.ndarray) -> list[np.ndarray]:
+    m0, s0, _ = _moments(log_prior, grid)
+    starts = [np.array([m, np.log(s)]), np.array([m, np.log(WIDEN * s)])]
+    precision = 1 / s**2 - 1 / max(s0, 1e-12) ** 2
+    if precision > 0:
+        starts.insert(0, np.array([(m / s**2 - m0 / s0**2) / precision,
+                                   -0.5 * np.log(precision)]))  # fmt: skip
+    return starts
+
+
+def _least_squares(residual, starts: list[np.ndarray], log_s: float) -> np.ndarray | None:
+    """The best of the fits from ``starts`` (each clipped into the bounds), or None when
+    every one fails."""
+    lower, upper = np.array([-50.0, log_s - 8]), np.array([50.0, max(8.0, log_s + 8)])
+    best, best_cost = None, np.inf
+    for start in starts:
+        x0 = np.clip(np.nan_to_num(start, nan=0.0), lower + 1e-6, upper - 1e-6)
+        try:
+            fit = optimize.least_squares(residual, x0, bounds=(lower, upper))
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError):
+            continue
+        if np.all(np.isfinite(fit.x)) and fit.cost < best_cost:
+            best, best_cost = fit.x, fit.cost
+    return best
 
 
 def check_compatible(earlier: ModelSpec, new: ModelSpec, folder: Path) -> None:
@@ -159,50 +197,46 @@ def base_text(spec: ModelSpec) -> str:
     return text.rstrip() + "\n"
 
 
-def _toml_number(value: float) -> str:
-    return repr(float(value))
-
-
 def earlier_section(study: EarlierStudy, approximations: list[Approximation]) -> str:
-    lines = [
-        "",
-        MARK,
-        "# The stated priors above are each multiplied by a normal factor N(mu, sigma) on",
-        "# the parameter's unconstrained scale (identity, log or logit), raised to the",
-        "# weight. Each factor was chosen so that prior x factor has the quantiles of the",
-        "# earlier fit's draws; 'quantile gap' is the largest difference in probability",
-        "# between that approximation and the draws at their 5/25/50/75/95% quantiles.",
+    notes = [
+        "The stated priors above are each multiplied by a normal factor N(mu, sigma) on",
+        "the parameter's unconstrained scale (identity, log or logit), raised to the",
+        "weight. Each factor was chosen so that prior x factor has the quantiles of the",
+        "earlier fit's draws; 'quantile gap' is the largest difference in probability",
+        "between that approximation and the draws at their 5/25/50/75/95% quantiles.",
     ]
+    factors = []
     for a in approximations:
         if a.factor_mu is None:
-            lines.append(
-                f"# {a.label}: the earlier draws add nothing measurable to the stated prior "
+            notes.append(
+                f"{a.label}: the earlier draws add nothing measurable to the stated prior "
                 f"(quantile gap {a.quantile_gap:.3f}); no factor"
             )
-    lines += [
-        "[earlier_study]",
-        f"weight = {_toml_number(study.weight)}",
-        f'fit = "{study.fit}"',
-        f'data_sha256 = "{study.data_sha256}"',
-    ]
-    for a in approximations:
-        if a.factor_mu is None:
             continue
-        lines += [
-            "",
-            f"# {a.label}: earlier draws mean {a.draws_mean:.4g}, sd {a.draws_sd:.4g} on the "
-            f"{a.scale} scale; quantile gap {a.quantile_gap:.3f}",
-            "[[earlier_study.factor]]",
-            f'parameter = "{a.parameter}"',
-        ]
-        if a.status is not None:
-            lines.append(f'status = "{a.status}"')
-        lines += [
-            f'scale = "{a.scale}"',
-            f"mu = {_toml_number(a.factor_mu)}",
-            f"sigma = {_toml_number(a.factor_sigma)}",
-        ]
-    return "\n".join(lines) + "\n"
+        notes.append(
+            f"{a.label}: earlier draws mean {a.draws_mean:.4g}, sd {a.draws_sd:.4g} on the "
+            f"{a.scale} scale; quantile gap {a.quantile_gap:.3f}"
+        )
+        if a.widened:
+            notes.append(
+                f"{a.label}: no normal factor matched the earlier draws within "
+                f"{FALLBACK_GAP:g}; a wider one, N(draws' mean, {WIDEN:g} x draws' sd), is "
+                "used instead, so the earlier study counts for less here than in full"
+            )
+        factors.append(
+            {"parameter": a.parameter, "status": a.status, "scale": a.scale,
+             "mu": float(a.factor_mu), "sigma": float(a.factor_sigma)}
+        )  # fmt: skip
+    table = {
+        "earlier_study": {
+            "weight": float(study.weight),
+            "fit": study.fit,
+            "data_sha256": study.data_sha256,
+            **({"factor": factors} if factors else {}),
+        }
+    }
+    lines = ["", MARK, *(tomlio.comment(n) for n in notes), "", tomlio.dumps(table)]
+    return "\n".join(lines)
 
 
 def prior_from_fit(
@@ -235,9 +269,11 @@ def prior_from_fit(
             draws = draws_of(posterior, hyper.variable, status)
             if draws is None:
                 continue
-            mu, sigma, mean, sd, gap = approximate(draws, hyper.prior, hyper.scale)
+            mu, sigma, mean, sd, gap, widened = approximate(draws, hyper.prior, hyper.scale)
             approximations.append(
-                Approximation(hyper.variable, status, hyper.scale, mean, sd, mu, sigma, gap)
+                Approximation(
+                    hyper.variable, status, hyper.scale, mean, sd, mu, sigma, gap, widened
+                )
             )
     study = EarlierStudy(weight, (), str(folder), str(loaded.run.get("data_sha256", "")))
     text = base_text(spec) + earlier_section(study, approximations)

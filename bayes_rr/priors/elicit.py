@@ -55,6 +55,7 @@ import numpy as np
 from scipy import optimize, stats
 from scipy.special import expit, logit
 
+from bayes_rr.core import tomlio
 from bayes_rr.core.distributions import Prior, make_prior
 from bayes_rr.core.errors import SpecError
 from bayes_rr.families import FAMILIES, family_of
@@ -312,11 +313,14 @@ def elicit(text: str, source: str = "<statements>") -> tuple[ModelSpec, list[dic
              "side": statement.side, "sure": statement.sure, "at": statement.at, **{
                  f"implied_{k}": v for k, v in check.items()}}
         )  # fmt: skip
-    header = [f"# Priors from statements ({source}), written by bayes-rr prior."]
+    header = [tomlio.comment(f"Priors from statements ({source}), written by bayes-rr prior.")]
     for row in rows:
         header.append(
-            f"# {row['about']}: typical {row['typical']:g}, {row['side'].replace('_', ' ')} "
-            f"{row['bound']:g} with probability {row['sure']:g} -> {row['sets']} = {row['prior']}"
+            tomlio.comment(
+                f"{row['about']}: typical {row['typical']:g}, {row['side'].replace('_', ' ')} "
+                f"{row['bound']:g} with probability {row['sure']:g} -> {row['sets']} = "
+                f"{row['prior']}"
+            )
         )
     out_text = "\n".join(header) + "\n\n" + spec_toml(spec, name or f"{spec.name}-elicited")
     return parse_spec(out_text, source=source), rows
@@ -326,52 +330,48 @@ def elicit(text: str, source: str = "<statements>") -> tuple[ModelSpec, list[dic
 # spec -> TOML
 
 
-def _inline(prior: Prior) -> str:
-    args = ", ".join(f"{k} = {float(v)!r}" for k, v in prior.params)
-    return f'{{ distribution = "{prior.distribution}", {args} }}'
-
-
-def _string(value: str) -> str:
-    return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+def _prior_table(prior: Prior) -> dict:
+    return {"distribution": prior.distribution, **{k: float(v) for k, v in prior.params}}
 
 
 def spec_toml(spec: ModelSpec, name: str | None = None) -> str:
-    """TOML text of ``spec`` (without comments; an earlier study is not written)."""
-    lines = [
-        f"name = {_string(name or spec.name)}",
-        f"description = {_string(spec.description)}",
-    ]
+    """TOML text of ``spec`` (without comments; an earlier study is not written), through
+    the serializer so a user's name or description stays a string."""
+    table: dict = {"name": name or spec.name, "description": spec.description}
     if spec.suits:
-        lines.append(f"suits = {_string(spec.suits)}")
-    lines += [f"family = {_string(spec.family)}", "", "[intercept]"]
+        table["suits"] = spec.suits
+    table["family"] = spec.family
     if spec.intercepts:
-        lines += [f"{k} = {_inline(v)}" for k, v in spec.intercepts]
+        table["intercept"] = {k: _prior_table(v) for k, v in spec.intercepts}
     else:
-        lines.append(f"prior = {_inline(spec.intercept)}")
+        table["intercept"] = {"prior": _prior_table(spec.intercept)}
+    terms = {}
     for term in spec.terms:
-        lines += ["", f"[terms.{term.name}]"]
         if term.kind == "group":
-            lines += [
-                f"scale_prior = {_inline(term.prior)}",
-                f"parameterization = {_string(term.parameterization)}",
-                f"auto_min_calls = {term.auto_min_calls}",
-            ]
+            terms[term.name] = {
+                "scale_prior": _prior_table(term.prior),
+                "parameterization": term.parameterization,
+                "auto_min_calls": int(term.auto_min_calls),
+            }
         else:
-            lines.append(f"prior = {_inline(term.prior)}")
+            terms[term.name] = {"prior": _prior_table(term.prior)}
+    if terms:
+        table["terms"] = terms
     if spec.concentration is not None:
-        lines += ["", "[concentration]", f"prior = {_inline(spec.concentration.prior)}",
-                  f"sharing = {_string(spec.concentration.sharing)}"]  # fmt: skip
+        table["concentration"] = {
+            "prior": _prior_table(spec.concentration.prior),
+            "sharing": spec.concentration.sharing,
+        }
     if spec.prevalence is not None:
-        lines += ["", "[prevalence]", f"prior = {_inline(spec.prevalence)}"]
+        table["prevalence"] = {"prior": _prior_table(spec.prevalence)}
     if family_of(spec).info.has_curve:
-        lines += ["", "[curve]", f"link = {_string(spec.link)}"]
+        table["curve"] = {"link": spec.link}
     sampler = spec.sampler
-    lines += [
-        "", "[sampler]", f"sampler = {_string(sampler.sampler)}", f"draws = {sampler.draws}",
-        f"tune = {sampler.tune}", f"chains = {sampler.chains}",
-        f"target_accept = {sampler.target_accept!r}",
-    ]  # fmt: skip
-    return "\n".join(lines) + "\n"
+    table["sampler"] = {
+        "sampler": sampler.sampler, "draws": int(sampler.draws), "tune": int(sampler.tune),
+        "chains": int(sampler.chains), "target_accept": float(sampler.target_accept),
+    }  # fmt: skip
+    return tomlio.dumps(table)
 
 
 def load_statements(path: str | Path) -> tuple[ModelSpec, list[dict]]:

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from bayes_rr.core import DEFAULT_PROB
 from bayes_rr.core.errors import DataError
-from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
+from bayes_rr.simulation.runner import Task, run_folder, run_tasks
 from bayes_rr.simulation.seeds import signature
 
 STUDY_SUFFIXES = (".csv", ".xlsx")
@@ -56,12 +56,22 @@ def find_study_files(pattern: str | Path) -> tuple[Path, ...]:
 
 
 def task_ids(files: tuple[Path, ...]) -> list[str]:
-    """A fit folder name per file: its stem, numbered when two files share one."""
-    ids, seen = [], {}
+    """A fit folder name per file, safe and distinct: the stem with anything but letters,
+    digits, ``-`` and ``_`` replaced, no leading dot (so never ``.`` or ``..``), and a number
+    added when two files would share a name (compared without case, as some file systems
+    do)."""
+    ids: list[str] = []
+    taken: set[str] = set()
     for path in files:
-        stem = "".join(c if c.isalnum() or c in "-_." else "_" for c in path.stem) or "study"
-        seen[stem] = seen.get(stem, 0) + 1
-        ids.append(stem if seen[stem] == 1 else f"{stem}-{seen[stem]}")
+        stem = "".join(c if c.isalnum() or c in "-_." else "_" for c in path.stem)
+        stem = ("_" + stem.lstrip(".")) if stem.startswith(".") else stem
+        stem = stem or "study"
+        candidate, number = stem, 1
+        while candidate.casefold() in taken:
+            number += 1
+            candidate = f"{stem}-{number}"
+        taken.add(candidate.casefold())
+        ids.append(candidate)
     return ids
 
 
@@ -134,26 +144,27 @@ def run_batch(
         "model": request.model, "seed": request.seed, "draws": request.draws,
         "prob": request.prob,
     }  # fmt: skip
-    prepare_run_dir(out, "batch", signature(run_settings))
-    (out / FITS_DIR).mkdir(exist_ok=True)
-    tasks = []
-    for task_id, path in zip(ids, request.files, strict=True):
-        payload = {"file": str(path), "model": request.model, "seed": request.seed,
-                   "draws": request.draws, "prob": request.prob,
-                   "fit_dir": str(out / FITS_DIR / task_id)}  # fmt: skip
-        tasks.append(Task(task_id, payload, {"file": str(path)}))
-    outcome = run_tasks(batch_task, tasks, out, client=client, workers=workers,
-                        scheduler=scheduler, progress=progress, what="studies")  # fmt: skip
-    rows = [outcome.results[i] for i in ids if i in outcome.results]
-    failures = [outcome.failures[i] for i in ids if i in outcome.failures]
-    table = pd.DataFrame(rows)
-    write_text_atomic(out / TABLE_FILE, table.to_csv(index=False))
-    html = batch_html(table, failures, f"{GENERATOR} {__version__}", request.prob)
-    write_text_atomic(out / REPORT_FILE, html)
-    document = {"rows": rows, "failures": failures, "resumed_tasks": outcome.resumed}
-    write_text_atomic(out / "batch.json", dumps({"generator": f"{GENERATOR} {__version__}",
-                                                  **document}) + "\n")  # fmt: skip
-    return document
+    with run_folder(out, "batch", signature(run_settings), client=client,
+                    scheduler=scheduler) as client:  # fmt: skip
+        (out / FITS_DIR).mkdir(exist_ok=True)
+        tasks = []
+        for task_id, path in zip(ids, request.files, strict=True):
+            payload = {"file": str(path), "model": request.model, "seed": request.seed,
+                       "draws": request.draws, "prob": request.prob,
+                       "fit_dir": str(out / FITS_DIR / task_id)}  # fmt: skip
+            tasks.append(Task(task_id, payload, {"file": str(path)}))
+        outcome = run_tasks(batch_task, tasks, out, client=client, workers=workers,
+                            scheduler=scheduler, progress=progress, what="studies")  # fmt: skip
+        rows = [outcome.results[i] for i in ids if i in outcome.results]
+        failures = [outcome.failures[i] for i in ids if i in outcome.failures]
+        table = pd.DataFrame(rows)
+        write_text_atomic(out / TABLE_FILE, table.to_csv(index=False))
+        html = batch_html(table, failures, f"{GENERATOR} {__version__}", request.prob)
+        write_text_atomic(out / REPORT_FILE, html)
+        document = {"rows": rows, "failures": failures, "resumed_tasks": outcome.resumed}
+        write_text_atomic(out / "batch.json", dumps({"generator": f"{GENERATOR} {__version__}",
+                                                      **document}) + "\n")  # fmt: skip
+        return document
 
 
 def batch_html(table, failures: list[dict], generator: str, prob: float) -> str:

@@ -24,7 +24,7 @@ from bayes_rr.simulation.quick import (
     scalar_draws,
     simulation_settings,
 )
-from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
+from bayes_rr.simulation.runner import Task, run_folder, run_tasks
 from bayes_rr.simulation.seeds import derived_seed, signature
 from bayes_rr.simulation.truths import simulate_design
 
@@ -186,44 +186,45 @@ def run_calibration(
         "sampler": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains},
     }  # fmt: skip
     out = Path(out)
-    prepare_run_dir(out, "calibrate", signature(run_settings))
-    simulated = simulate_design(spec, design, request.sims, derived_seed(request.seed, 0))
-    tasks = []
-    for k in range(request.sims):
-        seed = derived_seed(request.seed, 0, k)
-        task_settings = simulation_settings(fit_spec, seed, draws=request.draws,
-                                            tune=request.tune)  # fmt: skip
-        payload = {"spec": fit_spec, "study": simulated.study(k), "settings": task_settings,
-                   "truth": simulated.truth_of(k)}  # fmt: skip
-        tasks.append(Task(f"s{k:04d}", payload, {**design.as_dict(), "simulation": k + 1,
-                                                   "seed": seed}))  # fmt: skip
-    outcome = run_tasks(calibration_task, tasks, out, client=client, workers=workers,
-                        scheduler=scheduler, progress=progress, what="fits")  # fmt: skip
-    results = [v for _, v in sorted(outcome.results.items())]
-    rows = summarise(results)
-    document = {
-        "generator": f"{GENERATOR} {__version__}",
-        **run_settings,
-        "parameters": rows,
-        "fits_converged": sum(1 for r in results if r["converged"]),
-        "fits_failed": len(outcome.failures),
-        "failures": list(outcome.failures.values()),
-        "seconds_per_fit": float(np.median([r["seconds"] for r in results])) if results
-        else None,
-        "verdict": verdict(rows, len(results)),
-        "method": (
-            "Talts et al. (2018) simulation-based calibration: ranks among posterior draws "
-            "thinned to about the bulk ESS; uniformity by scipy.stats.kstest on fractional "
-            "ranks; simultaneous 95% ECDF band by ArviZ (Saeilynoja et al. 2022). Every fit "
-            "counts, converged or not (leaving some out would bias the ranks)."
-        ),
-        "resumed_tasks": outcome.resumed,
-    }  # fmt: skip
-    ranks = {}
-    for row in rows:
-        name = row["name"]
-        ranks[name] = np.array([r["quantities"][name]["rank"] for r in results
-                                if name in r["quantities"]])  # fmt: skip
-    write_bytes_atomic(out / FIGURE_FILE, ecdf_difference_figure(ranks))
-    write_text_atomic(out / CALIBRATION_FILE, dumps(document) + "\n")
-    return document
+    with run_folder(out, "calibrate", signature(run_settings), client=client,
+                    scheduler=scheduler) as client:  # fmt: skip
+        simulated = simulate_design(spec, design, request.sims, derived_seed(request.seed, 0))
+        tasks = []
+        for k in range(request.sims):
+            seed = derived_seed(request.seed, 0, k)
+            task_settings = simulation_settings(fit_spec, seed, draws=request.draws,
+                                                tune=request.tune)  # fmt: skip
+            payload = {"spec": fit_spec, "study": simulated.study(k), "settings": task_settings,
+                       "truth": simulated.truth_of(k)}  # fmt: skip
+            tasks.append(Task(f"s{k:04d}", payload, {**design.as_dict(), "simulation": k + 1,
+                                                       "seed": seed}))  # fmt: skip
+        outcome = run_tasks(calibration_task, tasks, out, client=client, workers=workers,
+                            scheduler=scheduler, progress=progress, what="fits")  # fmt: skip
+        results = [v for _, v in sorted(outcome.results.items())]
+        rows = summarise(results)
+        document = {
+            "generator": f"{GENERATOR} {__version__}",
+            **run_settings,
+            "parameters": rows,
+            "fits_converged": sum(1 for r in results if r["converged"]),
+            "fits_failed": len(outcome.failures),
+            "failures": list(outcome.failures.values()),
+            "seconds_per_fit": float(np.median([r["seconds"] for r in results])) if results
+            else None,
+            "verdict": verdict(rows, len(results)),
+            "method": (
+                "Talts et al. (2018) simulation-based calibration: ranks among posterior draws "
+                "thinned to about the bulk ESS; uniformity by scipy.stats.kstest on fractional "
+                "ranks; simultaneous 95% ECDF band by ArviZ (Saeilynoja et al. 2022). Every fit "
+                "counts, converged or not (leaving some out would bias the ranks)."
+            ),
+            "resumed_tasks": outcome.resumed,
+        }  # fmt: skip
+        ranks = {}
+        for row in rows:
+            name = row["name"]
+            ranks[name] = np.array([r["quantities"][name]["rank"] for r in results
+                                    if name in r["quantities"]])  # fmt: skip
+        write_bytes_atomic(out / FIGURE_FILE, ecdf_difference_figure(ranks))
+        write_text_atomic(out / CALIBRATION_FILE, dumps(document) + "\n")
+        return document

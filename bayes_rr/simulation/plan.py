@@ -17,7 +17,7 @@ from bayes_rr.families import family_of
 from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import Design, check_simulated
 from bayes_rr.simulation.quick import PLAN_KEYS, interval, quick_fit, simulation_settings
-from bayes_rr.simulation.runner import Task, prepare_run_dir, run_tasks
+from bayes_rr.simulation.runner import Task, run_folder, run_tasks
 from bayes_rr.simulation.seeds import derived_seed, signature
 from bayes_rr.simulation.truths import simulate_design
 
@@ -250,34 +250,37 @@ def run_plan(
         "production": None if request.production is None else request.production.as_dict(),
         "sampler": {"draws": settings.draws, "tune": settings.tune, "chains": settings.chains},
     }  # fmt: skip
-    prepare_run_dir(out, "plan", signature(run_settings))
-    tasks, simulated = _tasks(request, earlier_posterior, analysis_spec)
-    outcome = run_tasks(plan_task, tasks, out, client=client, workers=workers,
-                        scheduler=scheduler, progress=progress, what="simulated fits")  # fmt: skip
-    rows = []
-    for d, design in enumerate(request.designs):
-        prefix = f"d{d:02d}-"
-        results = [v for k, v in sorted(outcome.results.items()) if k.startswith(prefix)]
-        failed = sum(1 for k in outcome.failures if k.startswith(prefix))
-        rows.append(_summarise_design(design, results, failed, simulated[d].borderline_share))
-    document = {
-        "generator": f"{GENERATOR} {__version__}",
-        **run_settings,
-        "target": {
-            "key": key,
-            "width": request.target_width,
-            "assurance": request.target_assurance,
-        },
-        "designs": rows,
-        "recommendation": recommendation(rows, request, key),
-        "failures": list(outcome.failures.values()),
-        "resumed_tasks": outcome.resumed,
-        "notes": _notes(request, analysis_spec),
-    }
-    figure = width_figure(rows, request.prob)
-    write_bytes_atomic(out / FIGURE_FILE, figure)
-    write_text_atomic(out / PLAN_FILE, dumps(document) + "\n")
-    return document
+    with run_folder(out, "plan", signature(run_settings), client=client,
+                    scheduler=scheduler) as client:  # fmt: skip
+        tasks, simulated = _tasks(request, earlier_posterior, analysis_spec)
+        outcome = run_tasks(
+            plan_task, tasks, out, client=client, workers=workers, scheduler=scheduler,
+            progress=progress, what="simulated fits",
+        )  # fmt: skip
+        rows = []
+        for d, design in enumerate(request.designs):
+            prefix = f"d{d:02d}-"
+            results = [v for k, v in sorted(outcome.results.items()) if k.startswith(prefix)]
+            failed = sum(1 for k in outcome.failures if k.startswith(prefix))
+            rows.append(_summarise_design(design, results, failed, simulated[d].borderline_share))
+        document = {
+            "generator": f"{GENERATOR} {__version__}",
+            **run_settings,
+            "target": {
+                "key": key,
+                "width": request.target_width,
+                "assurance": request.target_assurance,
+            },
+            "designs": rows,
+            "recommendation": recommendation(rows, request, key),
+            "failures": list(outcome.failures.values()),
+            "resumed_tasks": outcome.resumed,
+            "notes": _notes(request, analysis_spec),
+        }
+        figure = width_figure(rows, request.prob)
+        write_bytes_atomic(out / FIGURE_FILE, figure)
+        write_text_atomic(out / PLAN_FILE, dumps(document) + "\n")
+        return document
 
 
 def _notes(request: PlanRequest, spec: ModelSpec) -> list[str]:

@@ -10,11 +10,12 @@ each model and design once.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import logging
 import os
 import traceback
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -58,7 +59,7 @@ def make_client(workers: int | None = None, scheduler: str | None = None):
     if scheduler:
         try:
             return Client(scheduler, timeout="10s")
-        except OSError as exc:
+        except (OSError, ValueError, TypeError) as exc:
             raise OutputError(
                 f"--scheduler {scheduler!r}: no Dask scheduler answered ({exc}); give the "
                 "address of a running scheduler (e.g. tcp://host:8786), or leave the option "
@@ -84,17 +85,40 @@ def close_client(client) -> None:
         cluster.close()
 
 
-def prepare_run_dir(out_dir: Path, command: str, signature: str) -> None:
-    """Create ``out_dir`` or accept one this command wrote with the same settings (a
-    resumed run). Anything else is refused: nothing the toolkit did not write is
-    touched."""
-    from bayes_rr import __version__
-    from bayes_rr.io.fit_folder import GENERATOR, check_location
+@contextlib.contextmanager
+def run_folder(
+    out_dir: Path, command: str, signature: str, *, client=None, scheduler: str | None = None
+) -> Iterator[object]:
+    """Prepare ``out_dir`` (see :func:`prepare_run_dir`) and hold it for the run: a
+    second run into the same folder is refused while this one lives, so two runs of
+    one plan never interleave. A ``scheduler`` is connected to before anything is
+    written (a wrong address leaves no folder behind); yields the client to use
+    (None: :func:`run_tasks` starts a local cluster)."""
+    from bayes_rr.io.output_safety import holding
+
+    check_run_dir(out_dir, command, signature)
+    own = client is None and bool(scheduler)
+    if own:
+        client = make_client(scheduler=scheduler)
+    try:
+        with holding(out_dir):
+            prepare_run_dir(out_dir, command, signature)
+            yield client
+    finally:
+        if own:
+            close_client(client)
+
+
+def check_run_dir(out_dir: Path, command: str, signature: str) -> None:
+    """Refuse an ``out_dir`` that is neither new, empty, nor this command's run with the
+    same settings (read only: nothing is created)."""
+    from bayes_rr.io.fit_folder import check_location
+    from bayes_rr.io.output_safety import CLAIM
 
     run_file = out_dir / RUN_FILE
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputError(f"--out {out_dir}: exists and is a file; choose a new folder name")
-    if out_dir.is_dir() and any(out_dir.iterdir()):
+    if out_dir.is_dir() and any(e.name != CLAIM for e in out_dir.iterdir()):
         try:
             previous = json.loads(run_file.read_text(encoding="utf-8"))
         except (OSError, ValueError):
@@ -109,13 +133,24 @@ def prepare_run_dir(out_dir: Path, command: str, signature: str) -> None:
                 f"--out {out_dir}: holds a '{command}' run with other settings, so it cannot "
                 "be resumed; choose a new folder, or repeat that run's exact command"
             )
-        return
-    if not out_dir.exists():
+    elif not out_dir.exists():
         check_location(out_dir)
+
+
+def prepare_run_dir(out_dir: Path, command: str, signature: str) -> None:
+    """Create ``out_dir`` or accept one this command wrote with the same settings (a
+    resumed run). Anything else is refused: nothing the toolkit did not write is
+    touched."""
+    from bayes_rr import __version__
+    from bayes_rr.io.fit_folder import GENERATOR
+
+    check_run_dir(out_dir, command, signature)
+    if (out_dir / RUN_FILE).is_file():
+        return
     out_dir.mkdir(parents=True, exist_ok=True)
     document = {"generator": f"{GENERATOR} {__version__}", "command": command,
                 "signature": signature}  # fmt: skip
-    write_text_atomic(run_file, dumps(document) + "\n")
+    write_text_atomic(out_dir / RUN_FILE, dumps(document) + "\n")
 
 
 def _guarded(func: Callable[[dict], dict], payload: dict) -> dict:

@@ -6,6 +6,7 @@ owns the step, and writes its machine-readable twin into the folder.
 
 from __future__ import annotations
 
+import contextlib
 from pathlib import Path
 
 import numpy as np
@@ -29,6 +30,7 @@ from bayes_rr.io.fit_folder import (
     check_output_file,
     load_fit,
 )
+from bayes_rr.io.output_safety import file_lock
 from bayes_rr.results.readings import HYPER_PARAMETERS
 
 CHECKS_FILE = "checks.json"
@@ -181,47 +183,48 @@ def report_fit(
         overwrite=overwrite,
         protected=tuple(folder / name for name in (*FILES, CHECKS_FILE)),
     )
-    wanted = ()
-    if criteria is not None:
-        from bayes_rr.results.decisions import check_keys, load_criteria
+    with file_lock(target):
+        wanted = ()
+        if criteria is not None:
+            from bayes_rr.results.decisions import check_keys, load_criteria
 
-        wanted = load_criteria(criteria)
-        check_keys(wanted)
-    comparison = compare_folders([folder, *compare]) if compare else None
-    calibration_document = _read_calibration(calibration) if calibration else None
-    fit = load_fit(folder)
-    summary = fit.summary
-    if wanted and summary["diagnostics"]["ok"]:
-        from bayes_rr.results.decisions import evaluate_criteria
+            wanted = load_criteria(criteria)
+            check_keys(wanted)
+        comparison = compare_folders([folder, *compare]) if compare else None
+        calibration_document = _read_calibration(calibration) if calibration else None
+        fit = load_fit(folder)
+        summary = fit.summary
+        if wanted and summary["diagnostics"]["ok"]:
+            from bayes_rr.results.decisions import evaluate_criteria
 
-        summary = {**summary, "criteria": evaluate_criteria(wanted, fit.idata["estimands"])}
-    checks = load_checks(folder)
-    if checks is None and run_checks:
-        checks = check_fit(folder)
-    from bayes_rr.report.plots import literal_text
+            summary = {**summary, "criteria": evaluate_criteria(wanted, fit.idata["estimands"])}
+        checks = load_checks(folder)
+        if checks is None and run_checks:
+            checks = check_fit(folder)
+        from bayes_rr.report.plots import literal_text
 
-    # Names from the data are drawn literally (a "$" is no mathematics), and the
-    # figures are drawn when the report embeds them: both inside the block.
-    with literal_text():
-        try:
-            inputs = ReportInputs(
-                summary=summary,
-                run=fit.run,
-                classical=fit.classical,
-                checks=checks,
-                figures=_figures(fit, checks),
-                title=title,
-                site=site,
-                notes=notes,
-                folder=str(folder) if folder_label is None else folder_label,
-                comparison=comparison,
-                calibration=calibration_document,
-            )
-            html = render_report(inputs)
-        except MALFORMED as exc:
-            raise _malformed(folder, exc) from None
-    write_text_atomic(target, html)
-    return target
+        # Names from the data are drawn literally (a "$" is no mathematics), and the
+        # figures are drawn when the report embeds them: both inside the block.
+        with literal_text():
+            try:
+                inputs = ReportInputs(
+                    summary=summary,
+                    run=fit.run,
+                    classical=fit.classical,
+                    checks=checks,
+                    figures=_figures(fit, checks),
+                    title=title,
+                    site=site,
+                    notes=notes,
+                    folder=str(folder) if folder_label is None else folder_label,
+                    comparison=comparison,
+                    calibration=calibration_document,
+                )
+                html = render_report(inputs)
+            except MALFORMED as exc:
+                raise _malformed(folder, exc) from None
+        write_text_atomic(target, html)
+        return target
 
 
 def _read_calibration(folder: str | Path) -> dict:
@@ -253,6 +256,11 @@ def compare_folders(
         protected = tuple(Path(f) / name for f in folders for name in (*FILES, CHECKS_FILE))
         check_output_file(Path(out), suffixes=(".json",), overwrite=overwrite,
                           protected=protected)  # fmt: skip
+    with file_lock(Path(out)) if out else contextlib.nullcontext():
+        return _compare(folders, out)
+
+
+def _compare(folders: list[str | Path], out: str | Path | None) -> dict:
     fits = [load_fit(f) for f in folders]
     names = []
     for fit in fits:
@@ -283,7 +291,8 @@ def write_prior(
 
     check_output_file(Path(out), suffixes=(".toml",), overwrite=overwrite,
                       protected=(Path(statements),))  # fmt: skip
-    spec, rows = load_statements(statements)
-    text = f"# generator: {GENERATOR} {__version__}\n" + spec.text
-    write_text_atomic(Path(out), text)
+    with file_lock(Path(out)):
+        spec, rows = load_statements(statements)
+        text = f"# generator: {GENERATOR} {__version__}\n" + spec.text
+        write_text_atomic(Path(out), text)
     return spec, rows
