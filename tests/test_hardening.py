@@ -71,7 +71,8 @@ def test_spec_toml_keeps_a_users_name_a_string(name):
 
 def test_statements_name_and_file_name_stay_strings():
     name_line = 'name = "QA \\"line\\"\\n[x] #1"'
-    text = STATEMENTS.replace('model = "reference-logit"', f'model = "reference-logit"\n{name_line}')
+    model_line = 'model = "reference-logit"'
+    text = STATEMENTS.replace(model_line, f"{model_line}\n{name_line}")
     spec, _ = elicit(text, "beliefs\n[evil].toml")
     assert spec.name == 'QA "line"\n[x] #1'
     assert "evil" not in tomllib.loads(spec.text)
