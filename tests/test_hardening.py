@@ -250,3 +250,84 @@ def test_small_earlier_studies_give_a_prior_for_every_family(model, tmp_path):
                 if a.widened:
                     assert f"{a.label}: no normal factor matched" in new_spec.text
             family_of(new_spec).build(new_spec, study)
+
+
+# --- non-finite numbers are bad input -----------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def measured_csv(tmp_path_factory):
+    """An invented plug-gauge-like study with a measured value per part (simulated)."""
+    from bayes_rr.simulation.known_truth import simulate_call_curve
+
+    study = simulate_call_curve(12, 2, 2, seed=5).study
+    frame = study.calls.copy()
+    frame["reference_value"] = frame["part"].map(study.reference_value)
+    frame["call"] = frame["call"].map({1: "reject", 0: "accept"})
+    path = tmp_path_factory.mktemp("measured") / "gauge.csv"
+    frame[["part", "appraiser", "trial", "call", "reference_value"]].to_csv(path, index=False)
+    return path
+
+
+def _bad_inputs(folder: Path, measured: Path) -> dict[str, tuple[list[str], str]]:
+    text = measured.read_text()
+    first_value = text.splitlines()[1].split(",")[-1]
+    inf_reference = write(folder, "inf_ref.csv", text.replace(first_value, "inf"))
+    limit_column = write(folder, "limit_col.csv", "".join(
+        line + (",upper_limit\n" if i == 0 else ",inf\n")
+        for i, line in enumerate(text.splitlines())))  # fmt: skip
+    values = write(folder, "values.csv", "value\n10.0\ninf\n9.8\n")
+    production = write(folder, "line.toml", "bad_share = 0.02\n[costs]\nfalse_reject = 1.0\n"
+                       "escape = inf\ncall = 0.1\n")  # fmt: skip
+    share_nan = write(folder, "nan_share.toml", "bad_share = nan\n")
+    criteria = write(folder, "criteria.toml", '[[criterion]]\nkey = "false_accept_rate"\n'
+                     'scope = "study"\nbelow = nan\nrequired_probability = 0.9\n')  # fmt: skip
+    curve = ["fit", str(measured), "--model", "call-curve", "--upper-limit", "10"]
+    return {
+        "reference value inf": (
+            ["fit", str(inf_reference), "--model", "call-curve", "--upper-limit", "10"],
+            "'inf'",
+        ),
+        "limit column inf": (["fit", str(limit_column), "--model", "call-curve"], "'inf'"),
+        "--upper-limit nan": (
+            ["fit", str(measured), "--model", "call-curve", "--upper-limit", "nan"],
+            "--upper-limit nan",
+        ),
+        "--lower-limit -inf": (
+            ["fit", str(measured), "--model", "call-curve", "--lower-limit", "-inf"],
+            "--lower-limit -inf",
+        ),
+        "--production-mean nan": (
+            [*curve, "--production-mean", "nan", "--production-sd", "1"],
+            "--production-mean nan",
+        ),
+        "--production-values inf": ([*curve, "--production-values", str(values)], "'inf'"),
+        "costs inf": ([*curve, "--production", str(production)], "inf"),
+        "bad_share nan": (
+            ["fit", str(measured), "--model", "reference-logit", "--production", str(share_nan)],
+            "nan",
+        ),
+        "criterion nan": ([*curve, "--criteria", str(criteria)], "nan"),
+    }
+
+
+@pytest.mark.parametrize("case", ["reference value inf", "limit column inf", "--upper-limit nan",
+                                  "--lower-limit -inf", "--production-mean nan",
+                                  "--production-values inf", "costs inf", "bad_share nan",
+                                  "criterion nan"])  # fmt: skip
+def test_non_finite_numbers_are_refused_before_any_work(case, measured_csv, tmp_path):
+    args, quoted = _bad_inputs(tmp_path, measured_csv)[case]
+    out = tmp_path / "fit"
+    result = runner.invoke(app, [*args, "--out", str(out), "--quiet"])
+    message = one_line_error(result)
+    assert quoted in message, message
+    assert not out.exists()
+
+
+def test_a_bare_column_of_values_keeps_its_first_value(tmp_path):
+    # a values file without a header: the first line is a value (before: taken as the
+    # column's name and dropped without a word)
+    from bayes_rr.study.data import read_values
+
+    assert read_values(write(tmp_path, "v.txt", "10.1\n9.5\n9.9\n")) == (10.1, 9.5, 9.9)
+    assert read_values(write(tmp_path, "w.csv", "value\n10.1\n9.5\n")) == (10.1, 9.5)

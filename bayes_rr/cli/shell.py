@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import functools
 import inspect
+import math
 import os
 import sys
 from pathlib import Path
@@ -76,6 +77,7 @@ def handles_errors(func):
     def wrapper(*args, **kwargs):
         quiet = bool(kwargs.get("quiet")) or kwargs.get("as_json") is True
         try:
+            _check_finite(kwargs)
             with interrupts.guard(_phase_line if _in_terminal(quiet) else None):
                 result = func(*args, **kwargs)
                 interrupts.raise_if_interrupted()
@@ -102,6 +104,16 @@ def handles_errors(func):
             ) from None
 
     return wrapper
+
+
+def _check_finite(options: dict) -> None:
+    """Every number given on the command line is finite: typer reads "nan" and "inf"
+    as floats, and a limit of nan would reach the sampler."""
+    for name, value in options.items():
+        values = value if isinstance(value, list | tuple) else [value]
+        for item in values:
+            if isinstance(item, float) and not math.isfinite(item):
+                raise DataError(f"--{name.replace('_', '-')} {item!r}: expected a finite number")
 
 
 # ---------------------------------------------------------------------------

@@ -15,6 +15,7 @@ module never imports PyMC.
 from __future__ import annotations
 
 import hashlib
+import math
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -135,6 +136,14 @@ def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) 
             rows = values.loc[numeric.isna(), "row"].tolist()
             bad = values.loc[numeric.isna(), role].iloc[0]
             raise DataError(f"{source}: reference value {bad!r} at {lines(rows)} is not a number")
+        infinite = ~np.isfinite(numeric.to_numpy(dtype=float))
+        if infinite.any():
+            rows = values.loc[infinite, "row"].tolist()
+            bad = values.loc[infinite, role].iloc[0]
+            raise DataError(
+                f"{source}: reference value {bad!r} at {lines(rows)} is not a finite number; "
+                "give the measured value"
+            )
         values = values.assign(**{role: numeric.to_numpy()})
     per_part = values.groupby("part")[role].nunique()
     conflicting = per_part[per_part > 1]
@@ -165,6 +174,16 @@ def _limits(
                     f"the whole study; found {seen}"
                 )
             from_data = float(values.iloc[0])
+            if not math.isfinite(from_data):
+                raise DataError(
+                    f"{source}: the {role.replace('_', ' ')} column holds "
+                    f"{long[role].astype(str).str.strip().iloc[0]!r}; expected a finite number"
+                )
+        if given is not None and not math.isfinite(given):
+            raise DataError(
+                f"--{role.replace('_', '-')} {given!r}: expected a finite number (the "
+                "specification limit, in the units of the measured values)"
+            )
         if given is not None and from_data is not None and given != from_data:
             raise DataError(
                 f"{source}: --{role.replace('_', '-')} {given:g} differs from the "
@@ -392,6 +411,14 @@ def study_from_cells(
     return build_study(long, source=source, reference=ref)
 
 
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
 def read_values(path: str | Path) -> tuple[float, ...]:
     """A column of numbers from a CSV or XLSX file (the column named ``value``, or the
     only column): measured production values, for example."""
@@ -406,8 +433,17 @@ def read_values(path: str | Path) -> tuple[float, ...]:
             )
         column = frame.columns[0]
     text = frame[column].astype(str).str.strip()
+    if frame.shape[1] == 1 and _is_number(str(column)):
+        # a bare column of numbers: its first line is a value, not a header
+        text = pd.concat([pd.Series([str(column).strip()]), text], ignore_index=True)
     numbers = pd.to_numeric(text[text != ""], errors="coerce")
     if numbers.isna().any() or numbers.empty:
         bad = text[text != ""][numbers.isna()].head(3).tolist()
         raise DataError(f"{path}: column {column!r} holds non-numbers {bad}; expected numbers")
+    infinite = ~np.isfinite(numbers.to_numpy(dtype=float))
+    if infinite.any():
+        bad = text[text != ""][infinite].head(3).tolist()
+        raise DataError(
+            f"{path}: column {column!r} holds {bad}, not finite numbers; expected measured values"
+        )
     return tuple(float(v) for v in numbers)
