@@ -331,3 +331,42 @@ def test_a_bare_column_of_values_keeps_its_first_value(tmp_path):
 
     assert read_values(write(tmp_path, "v.txt", "10.1\n9.5\n9.9\n")) == (10.1, 9.5, 9.9)
     assert read_values(write(tmp_path, "w.csv", "value\n10.1\n9.5\n")) == (10.1, 9.5)
+
+
+# --- late and internal errors ----------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("statement", "expected"),
+    [
+        # numbers valid alone whose prior is out of every range (before: internal error)
+        ("typical = 1e-9\nat_most = 0.3\nsure = 0.5001", "far wider or narrower"),
+        ("typical = 1e-9\nat_most = 0.999999\nsure = 0.5001", "far wider or narrower"),
+        # a bound equal to the typical value on the lower side (before: a zero-width prior)
+        ("typical = 0.001\nat_least = 0.001", "must lie below typical"),
+    ],
+)
+def test_extreme_statements_are_refused_in_one_line(statement, expected, tmp_path):
+    text = f'model = "crossed-logit"\n[[statement]]\nabout = "call_rate"\n{statement}\n'
+    statements = write(tmp_path, "beliefs.toml", text)
+    result = runner.invoke(app, ["prior", str(statements), "--out", str(tmp_path / "p.toml")])
+    assert expected in one_line_error(result)
+    assert not (tmp_path / "p.toml").exists()
+
+
+def test_a_criterion_the_model_lacks_is_refused_before_sampling(demo_csv, tmp_path, monkeypatch):
+    import bayes_rr.workflow.fit as workflow
+
+    def no_sampling(*args, **kwargs):
+        raise AssertionError("sampled before the criteria were checked")
+
+    monkeypatch.setattr(workflow, "sample_model", no_sampling)
+    criteria = write(tmp_path, "c.toml", '[[criterion]]\nkey = "interaction_variance"\n'
+                     'scope = "study"\nbelow = 0.1\nrequired_probability = 0.9\n')  # fmt: skip
+    out = tmp_path / "fit"
+    result = runner.invoke(app, ["fit", str(demo_csv), "--model", "crossed-logit", "--criteria",
+                                 str(criteria), "--out", str(out), "--quiet"])  # fmt: skip
+    message = one_line_error(result)
+    assert "crossed-logit model does not give it" in message
+    assert "population scope" in message
+    assert not out.exists()

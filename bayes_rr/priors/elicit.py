@@ -262,7 +262,8 @@ def parse_statements(text: str, source: str = "<statements>") -> tuple[str, str,
         at = _unit(table.get("at", 0.5), f"{where}.at", source)
         if sure <= 0.5:
             raise SpecError(f"{source}: {where}.sure = {sure!r}: expected more than 0.5")
-        if (sides[0] == "at_most") != (bound > typical):
+        beyond = bound > typical if sides[0] == "at_most" else bound < typical
+        if not beyond:
             relation = "above" if sides[0] == "at_most" else "below"
             raise SpecError(
                 f"{source}: {where}: {sides[0]} = {bound!r} must lie {relation} typical = "
@@ -304,7 +305,17 @@ def elicit(text: str, source: str = "<statements>") -> tuple[ModelSpec, list[dic
                 f"{source}: a statement about {statement.about} sets the {kind.location[1]} "
                 f"term's prior, which the {spec.name!r} model does not have"
             )
-        prior = prior_for(statement)
+        try:
+            prior = prior_for(statement)
+        except ValueError as exc:
+            # the numbers are valid alone but give a prior no fit can use
+            raise SpecError(
+                f"{source}: the statement about {statement.about} (typical "
+                f"{statement.typical:g}, {statement.side.replace('_', ' ')} {statement.bound:g}, "
+                f"sure {statement.sure:g}) needs a prior outside what the model takes ({exc}); "
+                "together they ask for a prior far wider or narrower than any study supports; "
+                "check the typical value, the bound and sure"
+            ) from None
         spec = _set_prior(spec, kind.location, prior)
         check = implied(statement, prior)
         rows.append(

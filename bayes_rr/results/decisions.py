@@ -168,6 +168,38 @@ def _draws_of(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
     )
 
 
+def check_available(
+    criteria: tuple[Criterion, ...], estimands: xr.Dataset, model: str = "this"
+) -> None:
+    """Refuse a criterion ``estimands`` (of a few prior draws, before sampling) lack:
+    the fit would give no draws to judge it by."""
+    from bayes_rr.results.production import ROW_KEYS
+
+    for criterion in criteria:
+        if criterion.scope == "production":
+            if criterion.key not in (*ROW_KEYS, "bad_share"):
+                raise SpecError(
+                    f"criterion key {criterion.key!r} (production scope) is not a production "
+                    f"figure; expected one of {sorted((*ROW_KEYS, 'bad_share'))}"
+                )
+            continue
+        scopes = sorted({
+            name.split("__")[0] for name in estimands.data_vars
+            if name.split("__")[2:] == [criterion.key] and estimands[name].ndim == 2
+        })  # fmt: skip
+        if criterion.scope in scopes:
+            continue
+        known = sorted({
+            name.split("__")[2] for name in estimands.data_vars
+            if name.startswith(criterion.scope + "__") and estimands[name].ndim == 2
+        })  # fmt: skip
+        elsewhere = f"; it is given in {' and '.join(scopes)} scope" if scopes else ""
+        raise SpecError(
+            f"criterion key {criterion.key!r} ({criterion.scope} scope): the {model} model "
+            f"does not give it{elsewhere}; expected one of {known}, or another model"
+        )
+
+
 def evaluate_criteria(criteria: tuple[Criterion, ...], estimands: xr.Dataset) -> list[dict]:
     """Each criterion with ``probability`` (the share of draws meeting it) and ``met``.
 

@@ -13,6 +13,7 @@ from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 from importlib import metadata
 
+import numpy as np
 import xarray as xr
 
 from bayes_rr import __version__
@@ -151,9 +152,7 @@ def fit_study(
     size = (len(study.parts), len(study.appraisers), len(study.cells))
     check_memory(*size, stages[0], spec.family)
     if criteria:
-        from bayes_rr.results.decisions import check_keys
-
-        check_keys(criteria)
+        _check_criteria(criteria, spec, study, settings.seed)
     started = datetime.now(UTC)
     interrupts.checkpoint("compiling", f"the {spec.name} model")
     t0 = time.perf_counter()
@@ -284,6 +283,19 @@ def _check_production(production, criteria, spec, study) -> None:
             f"criterion {wanted[0].key!r} has scope 'production', but no production file was "
             "given; add --production FILE (docs/statistics.md, production scope)"
         )
+
+
+def _check_criteria(criteria, spec, study, seed: int) -> None:
+    """Refuse, before sampling, a criterion this model will not give: the estimands of
+    two prior draws carry exactly the names a fit's estimands will."""
+    from bayes_rr.priors.prior_draws import draw_prior
+    from bayes_rr.results.decisions import check_available, check_keys
+
+    check_keys(criteria)
+    prior = draw_prior(spec, study, 2, seed)
+    with np.errstate(all="ignore"):
+        estimands = compute_estimands(prior, spec, study, seed)
+    check_available(criteria, estimands, spec.name)
 
 
 FIRST_STAGE_DRAWS = 1000
