@@ -370,3 +370,32 @@ def test_a_criterion_the_model_lacks_is_refused_before_sampling(demo_csv, tmp_pa
     assert "crossed-logit model does not give it" in message
     assert "population scope" in message
     assert not out.exists()
+
+
+@pytest.mark.slow
+def test_ctrl_c_to_the_process_group_stops_a_plan_quietly(tmp_path):
+    """Ctrl-C reaches every process of the group (the terminal sends it so): the
+    workers ignore it, the command closes them and says one line (before: one
+    traceback a worker above the message)."""
+    import os
+    import signal
+    import subprocess
+    import time
+
+    out = tmp_path / "plan"
+    command = ["bayes-rr", "plan", "--model", "beta-binomial", "--parts", "10", "--appraisers",
+               "2", "--trials", "2", "--sims", "40", "--out", str(out), "--quiet", "--workers",
+               "2"]  # fmt: skip
+    run = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                           start_new_session=True)  # fmt: skip
+    deadline = time.monotonic() + 120
+    while not (out / "tasks").is_dir() and time.monotonic() < deadline:
+        time.sleep(0.2)
+    time.sleep(3)  # the cluster is up and fitting
+    os.killpg(run.pid, signal.SIGINT)
+    _, stderr = run.communicate(timeout=180)
+    assert run.returncode == 130, stderr
+    lines = stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("interrupted"), stderr
+    assert "Traceback" not in stderr
+    assert not (out / CLAIM).exists()  # the claim went with the run

@@ -14,6 +14,7 @@ import contextlib
 import json
 import logging
 import os
+import signal
 import traceback
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
@@ -68,14 +69,28 @@ def make_client(workers: int | None = None, scheduler: str | None = None):
     count = workers or default_workers()
     # The cluster's own log lines (start, close) are noise in a command's output.
     logging.getLogger("distributed").setLevel(logging.ERROR)
-    cluster = LocalCluster(
-        n_workers=count,
-        threads_per_worker=1,
-        processes=True,
-        dashboard_address=":0",  # any free port: another cluster may hold the usual one
-        silence_logs=logging.ERROR,
-    )
+    # Ctrl-C reaches the whole process group: worker processes started while SIGINT is
+    # ignored keep ignoring it (Python installs its handler only over the default), so
+    # only this process answers it and closes the cluster, without a traceback a worker.
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        cluster = LocalCluster(
+            n_workers=count,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=":0",  # any free port: another cluster may hold the usual one
+            silence_logs=logging.ERROR,
+        )
+    finally:
+        signal.signal(signal.SIGINT, previous)
     return Client(cluster)
+
+
+def quiet_dask() -> None:
+    """Silence the cluster's loggers: a run being stopped logs its cancelled
+    connections as errors, which tell the user nothing."""
+    for name in ("distributed", "tornado", "asyncio"):
+        logging.getLogger(name).setLevel(logging.CRITICAL + 1)
 
 
 def close_client(client) -> None:
@@ -238,6 +253,9 @@ def run_tasks(
                     failures[task.task_id] = record
                     write_text_atomic(failed_path, dumps(record) + "\n")
                 advance()
+    except BaseException:
+        quiet_dask()  # stopped (Ctrl-C, SIGTERM) or failed: the reason is said once, above
+        raise
     finally:
         if own_client:
             close_client(client)
