@@ -399,3 +399,34 @@ def test_ctrl_c_to_the_process_group_stops_a_plan_quietly(tmp_path):
     assert len(lines) == 1 and lines[0].startswith("interrupted"), stderr
     assert "Traceback" not in stderr
     assert not (out / CLAIM).exists()  # the claim went with the run
+
+
+def test_consistency_is_not_ranked_on_appraisers_without_repeats():
+    """Repeatability of an appraiser who called no part twice is the prior's: the
+    comparison leaves them out, and names nobody when fewer than two remain (before:
+    "most consistent: Chen, 0.92" from a one-trial study)."""
+    import xarray as xr
+
+    from bayes_rr.results.decisions import compare_appraisers
+
+    rng = np.random.default_rng(0)
+    names = ["Ann", "Ben", "Cy"]
+    shape = (2, 200, 3)
+    estimands = xr.Dataset(
+        {
+            "study__appraiser__call_rate": (("chain", "draw", "appraiser"), rng.random(shape)),
+            "study__appraiser__repeatability_variance": (
+                ("chain", "draw", "appraiser"),
+                rng.random(shape) * [0.01, 0.2, 0.2],  # Ann clearly the most consistent
+            ),
+        },
+        coords={"appraiser": names},
+    )
+    everyone = compare_appraisers(estimands, repeated=dict.fromkeys(names, True))
+    assert max(everyone["most_consistent_probability"].items(), key=lambda kv: kv[1])[0] == "Ann"
+    two = compare_appraisers(estimands, repeated={"Ann": False, "Ben": True, "Cy": True})
+    assert set(two["most_consistent_probability"]) == {"Ben", "Cy"}
+    assert any("Ann called no part twice" in s for s in two["sentences"])
+    none = compare_appraisers(estimands, repeated={"Ann": False, "Ben": False, "Cy": True})
+    assert none["most_consistent_probability"] is None
+    assert not any(s.startswith("Most consistent") for s in none["sentences"])

@@ -147,3 +147,5 @@ def test_the_answer_box_and_the_python_face_follow_the_limitations(fits):
     frame = Fit(result.study, result.spec, summary, {}, {}, None, result=limited).summary()
     noted = frame[(frame["key"] == "repeat_disagreement") & (frame["level"] == "study")]
     assert noted["note"].str.startswith("set by the prior").all()
+    assert (noted["rests_on"] == "prior only").all()
+    assert (frame.loc[frame["key"] == "call_rate", "rests_on"] == "data").all()

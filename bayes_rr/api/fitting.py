@@ -8,6 +8,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from bayes_rr.core import DEFAULT_PROB
@@ -16,7 +17,7 @@ from bayes_rr.study.data import StudyData
 
 SUMMARY_COLUMNS = (
     "key", "level", "scope", "appraiser", "part",
-    "mean", "median", "sd", "lower", "upper", "r_hat", "ess_bulk", "ess_tail", "note",
+    "mean", "median", "sd", "lower", "upper", "r_hat", "ess_bulk", "ess_tail", "rests_on", "note",
 )  # fmt: skip
 NUMBER_COLUMNS = ("mean", "median", "sd", "lower", "upper", "r_hat", "ess_bulk", "ess_tail")
 RATE_KEYS = ("false_reject_rate", "false_accept_rate", "reference_agreement")
@@ -64,12 +65,22 @@ class Fit:
         """Every result, one row each: ``key``, ``level`` (study, system, appraiser, part),
         ``scope`` (study, population or production), ``appraiser``, ``part``, the
         posterior ``mean``, ``median``, ``sd``, the interval (``lower``, ``upper``),
-        ``r_hat``, ``ess_bulk``, ``ess_tail`` and ``note`` (why a row rests on the prior
-        or the design alone)."""
+        ``r_hat``, ``ess_bulk``, ``ess_tail``, ``rests_on`` ("data"; "prior only" or
+        "design" where the study's design cannot inform the row: read its numbers as the
+        prior's or as fixed, not as measured) and ``note`` (why)."""
         frame = pd.DataFrame(self.document["estimands"])
         for column in SUMMARY_COLUMNS:
             if column not in frame:
                 frame[column] = None
+        notes = frame["note"].fillna("").astype(str)
+        frame["rests_on"] = np.select(
+            [
+                notes.str.startswith("set by the prior"),
+                notes.str.startswith("fixed by construction"),
+            ],
+            ["prior only", "design"],
+            "data",
+        )
         frame = frame.loc[:, list(SUMMARY_COLUMNS)]
         for column in NUMBER_COLUMNS:
             frame[column] = pd.to_numeric(frame[column], errors="coerce").astype("float64")

@@ -260,7 +260,10 @@ def _interval(values: np.ndarray, prob: float) -> tuple[float, float]:
 
 
 def compare_appraisers(
-    estimands: xr.Dataset, prob: float = 0.95, level: float = DIFFER_LEVEL
+    estimands: xr.Dataset,
+    prob: float = 0.95,
+    level: float = DIFFER_LEVEL,
+    repeated: dict[str, bool] | None = None,
 ) -> dict | None:
     """The study's appraisers compared, from the posterior draws (study scope).
 
@@ -270,7 +273,10 @@ def compare_appraisers(
     more.
     With per-appraiser repeatability, the probability that each appraiser is the most
     consistent (the smallest repeatability variance, i.e. the least self-disagreement).
-    None with fewer than two appraisers or no per-appraiser estimands.
+    ``repeated`` says which appraisers called some part more than once: only they enter
+    that comparison (another's repeatability rests on the prior alone), and none is named
+    when fewer than two did. None with fewer than two appraisers or no per-appraiser
+    estimands.
     """
     names = [str(a) for a in estimands["appraiser"].to_numpy()] if "appraiser" in estimands else []
     if len(names) < 2:
@@ -295,11 +301,15 @@ def compare_appraisers(
                 if share >= level:
                     row = {"key": key, "label": label, "appraiser": name}
                     differ.append({**row, "direction": direction, "probability": float(share)})
-    consistency = None
+    consistency, unrepeated = None, []
     repeat = _appraiser_draws(estimands, "repeatability_variance")
     if repeat is not None:
-        best = np.bincount(repeat.argmin(axis=1), minlength=len(names)) / repeat.shape[0]
-        consistency = {name: float(p) for name, p in zip(names, best, strict=True)}
+        keep = [j for j, name in enumerate(names) if (repeated or {}).get(name, True)]
+        unrepeated = [name for j, name in enumerate(names) if j not in keep]
+        if len(keep) >= 2:
+            best = np.bincount(repeat[:, keep].argmin(axis=1), minlength=len(keep))
+            consistency = {names[j]: float(p) for j, p in zip(keep, best / repeat.shape[0],
+                                                               strict=True)}  # fmt: skip
     if not pairs:
         return None
     return {
@@ -308,11 +318,14 @@ def compare_appraisers(
         "pairs": pairs,
         "differ": differ,
         "most_consistent_probability": consistency,
-        "sentences": _comparison_sentences(differ, consistency, level),
+        "consistency_left_out": unrepeated,
+        "sentences": _comparison_sentences(differ, consistency, level, unrepeated),
     }
 
 
-def _comparison_sentences(differ: list[dict], consistency: dict | None, level: float) -> list:
+def _comparison_sentences(
+    differ: list[dict], consistency: dict | None, level: float, unrepeated: list[str]
+) -> list:
     out = []
     for row in differ:
         out.append(
@@ -329,5 +342,14 @@ def _comparison_sentences(differ: list[dict], consistency: dict | None, level: f
         out.append(
             f"Most consistent (least disagreement with their own repeat calls): {best}, with "
             f"posterior probability {consistency[best]:.2f}."
+        )
+    if unrepeated:
+        who = ", ".join(unrepeated)
+        out.append(
+            f"Not compared for consistency: {who} called no part twice, so the data say "
+            "nothing of their repeatability (the prior alone sets it)."
+            if consistency
+            else "Which appraiser is most consistent cannot be said: fewer than two appraisers "
+            "called any part twice."
         )
     return out

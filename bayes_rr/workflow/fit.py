@@ -192,7 +192,9 @@ def fit_study(
     wrong_calls = wrong_call_summary(estimands, estimand_rows, spec, prob, diagnostics.ok)
     from bayes_rr.results.decisions import compare_appraisers
 
-    comparisons = compare_appraisers(estimands, prob) if diagnostics.ok else None
+    repeated = study.cells.groupby("appraiser")["n"].max().gt(1)
+    repeated = {str(name): bool(flag) for name, flag in repeated.items()}
+    comparisons = compare_appraisers(estimands, prob, repeated=repeated) if diagnostics.ok else None
     from bayes_rr.priors.sensitivity import prior_sensitivity
 
     sensitivity = prior_sensitivity(posterior, estimands, idata.log_likelihood, spec)
