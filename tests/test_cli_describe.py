@@ -53,7 +53,26 @@ def test_describe_tables(demo_csv):
     assert result.exit_code == 0
     text = " ".join(result.output.split())
     assert "Moment estimates" in text
-    assert "kappa of own trials" in text and "Pairs of appraisers" in text
+    assert "Classical agreement, appraiser by appraiser" in text
+    assert "Appraisers two by two" in text
+
+
+def test_describe_agreement_is_one_table_a_row_per_appraiser(demo_csv, monkeypatch):
+    """One table, one row per appraiser (and one for all of them), every figure of that
+    appraiser on its row; whole numbers at 80 columns (common practice: a table read
+    across its rows)."""
+    monkeypatch.setenv("COLUMNS", "80")
+    result = run("describe", demo_csv)
+    lines = result.output.splitlines()
+    assert all(len(line) <= 80 for line in lines)
+    start = next(i for i, line in enumerate(lines) if "appraiser by appraiser" in line)
+    end = next(i for i in range(start, len(lines)) if "two by two" in lines[i])
+    block = lines[start:end]
+    for name in ("Ayla", "Bruno", "Chen"):
+        row = next(line for line in block if line.strip().startswith(name))
+        assert len(row.split()) == 7, row  # name and six figures on one line
+    assert sum(line.strip().startswith("all") for line in block) == 1
+    assert "Each appraiser against the reference" not in result.output
 
 
 def test_demo_writes_data(tmp_path):

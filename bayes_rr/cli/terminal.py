@@ -7,6 +7,7 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
+from rich import box
 from rich.table import Table
 
 from bayes_rr.cli.shell import _num, err, out
@@ -74,14 +75,14 @@ def _share_text(row: dict | None) -> str:
     wilson = next((i for i in row["intervals"] if i["method"].startswith("Wilson")),
                   row["intervals"][0])  # fmt: skip
     share = row.get("share", row.get("rate"))
-    return f"{share:.0%}\n{wilson['lower']:.0%}-{wilson['upper']:.0%}"
+    return f"{share:.0%}\n{100 * wilson['lower']:.0f}-{wilson['upper']:.0%}"
 
 
 def _kappa_text(row: dict | None) -> str:
     if row is None:
         return "-"
     lower, upper = row.get("lower"), row.get("upper")
-    interval = "" if lower is None or upper is None else f"\n{lower:.2f} to {upper:.2f}"
+    interval = "" if lower is None or upper is None else f"\n{lower:.2f}..{upper:.2f}"
     return f"{row['kappa']:.2f}{interval}"
 
 
@@ -90,36 +91,47 @@ def _print_classical_by_appraiser(result: dict, prob: float) -> None:
     from bayes_rr.study.classical import by_appraiser
 
     rows = by_appraiser(result)
-    table = Table(
-        title="Each appraiser's own consistency",
-        caption=f"shares with {prob:.0%} Wilson intervals; kappa with a {prob:.0%} bootstrap "
-        "interval over parts (null SEs and z: --json)",
+    with_reference = any(item["reference"] for item in rows)
+    caption = (
+        "own: the appraiser's own trials; alike: share of parts called the same on every "
+        "one"
     )
-    for name in ("appraiser", "parts called alike on every own trial", "kappa of own trials"):
-        table.add_column(name, justify="left" if name == "appraiser" else "right")
-    for item in rows:
-        table.add_row(item["appraiser"] or "all together", _share_text(item["own"]),
-                      _kappa_text(item["own_kappa"]))  # fmt: skip
-    out.print(table)
-    if any(item["reference"] for item in rows):
-        table = Table(
-            title="Each appraiser against the reference",
-            caption="error rates count calls, treating them as independent",
+    if with_reference:
+        caption += (
+            "; ref: the reference; match: share of parts matching it on every trial; false "
+            "reject/accept: share of calls (as if independent)"
         )
-        for name in ("appraiser", "parts matching on every trial", "kappa",
-                     "false reject rate", "false accept rate"):  # fmt: skip
-            table.add_column(name, justify="left" if name == "appraiser" else "right")
-        for item in rows:
-            table.add_row(item["appraiser"] or "all together", _share_text(item["reference"]),
-                          _kappa_text(item["reference_kappa"]),
-                          _share_text(item["false_reject_rate"]),
-                          _share_text(item["false_accept_rate"]))  # fmt: skip
-        out.print(table)
+    caption += (
+        f". Mean, then its {prob:.0%} interval (Wilson for shares, bootstrap over parts for "
+        "kappa; null SEs and z: --json)"
+    )
+    table = Table(title="Classical agreement, appraiser by appraiser", caption=caption,
+                  box=box.SIMPLE_HEAD, padding=(0, 1))  # fmt: skip
+    columns = ["appraiser", "own alike", "own kappa"]
+    if with_reference:
+        columns += ["ref match", "ref kappa", "false reject", "false accept"]
+    longest = max((len(item["appraiser"] or "") for item in rows), default=0)
+    for name in columns:
+        # fixed widths: seven columns fit 80 with "0.20..0.58" whole (rich's own
+        # shrinking would break numbers and words instead)
+        width = min(max(longest, 9), 12) if name == "appraiser" else (
+            11 if "kappa" in name else 6)  # fmt: skip
+        table.add_column(name, justify="left" if name == "appraiser" else "right",
+                         width=width)  # fmt: skip
+    for item in rows:
+        cells = [item["appraiser"] or "all together", _share_text(item["own"]),
+                 _kappa_text(item["own_kappa"])]  # fmt: skip
+        if with_reference:
+            cells += [_share_text(item["reference"]), _kappa_text(item["reference_kappa"]),
+                      _share_text(item["false_reject_rate"]),
+                      _share_text(item["false_accept_rate"])]  # fmt: skip
+        table.add_row(*cells)
+    out.print(table)
     kappas = {(r["appraiser"], r["other"]): r for r in result["kappa"]
               if r["kind"] == "appraiser_pair"}  # fmt: skip
     if result["appraiser_differences"] or kappas:
         table = Table(
-            title="Pairs of appraisers",
+            title="Appraisers two by two",
             caption="Cohen's kappa pairs every call of one with every call of the other on "
             "a part; the difference of call rates with Newcombe's interval",
         )
