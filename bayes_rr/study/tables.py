@@ -20,6 +20,7 @@ from pathlib import Path
 import pandas as pd
 
 from bayes_rr.core.errors import DataError
+from bayes_rr.study.types import MAX_CALLS
 
 MAX_FILE_BYTES = 256 * 1024 * 1024
 DELIMITERS = ",;\t|"
@@ -61,6 +62,20 @@ class RawTable:
     sheets: tuple[str, ...] = ()
 
 
+MAX_ROWS = 1_000_000 + 10_000
+"""Rows a study file may have: a study has at most MAX_CALLS calls, one a row in the
+tidy layout (fewer rows in the wide one), with room for comment lines. Counted before
+parsing, so a file far too long is refused at once."""
+
+
+def _check_rows(rows: int, source: str) -> None:
+    if rows > MAX_ROWS:
+        raise DataError(
+            f"{source}: {rows:,} lines, more than a study of {MAX_CALLS:,} calls can have "
+            "(one call a line); split the study, or check that this is a study file"
+        )
+
+
 def read_table(path: Path, sheet: str | None = None) -> RawTable:
     """Read a CSV or XLSX file into a :class:`RawTable` (or raise a one-line DataError)."""
     if not path.exists():
@@ -94,8 +109,10 @@ def read_table(path: Path, sheet: str | None = None) -> RawTable:
         raise DataError(
             f"{path}: not a text file (binary content); expected a CSV file saved as UTF-8"
         )
+    data = path.read_bytes()
+    _check_rows(data.count(b"\n"), str(path))
     try:
-        text = path.read_bytes().decode("utf-8-sig")
+        text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise DataError(
             f"{path}: not UTF-8 text (byte {exc.start}: {exc.object[exc.start : exc.start + 1]!r});"
@@ -225,6 +242,7 @@ def _read_xlsx(path: Path, sheet: str | None) -> RawTable:
         if sheet is not None and sheet not in names:
             raise DataError(f"{path}: no sheet {sheet!r}; the workbook has sheets {list(names)}")
         chosen = sheet if sheet is not None else names[0]
+        _check_rows(book[chosen].max_row or 0, f"{path} (sheet {chosen!r})")
         cells = [list(row) for row in book[chosen].iter_rows(values_only=True)]
     finally:
         book.close()
