@@ -443,3 +443,78 @@ def test_a_file_far_too_long_is_refused_before_parsing(tmp_path, monkeypatch):
     result = runner.invoke(app, ["describe", str(path)])
     message = one_line_error(result)
     assert f"{tables.MAX_ROWS + 2:,} lines" in message
+
+
+# --- limits against the data, options the model does not use (issue of measured values) ---
+
+
+@pytest.mark.parametrize(
+    ("option", "expected"),
+    [
+        (["--upper-limit", "10050"], "10050 x 0.001 = 10.05"),  # micrometres against mm
+        (["--upper-limit", "0.4"], "0.4 x 25.4"),  # inches against mm
+        (["--lower-limit", "-40"], "check the limit"),
+    ],
+)
+def test_a_limit_far_from_the_values_is_refused_with_the_likely_unit(
+    option, expected, measured_csv, tmp_path
+):
+    out = tmp_path / "fit"
+    result = runner.invoke(app, ["fit", str(measured_csv), "--model", "call-curve", *option,
+                                 "--out", str(out), "--quiet"])  # fmt: skip
+    message = one_line_error(result)
+    assert "measured values' own range" in message and expected in message, message
+    assert not out.exists()
+
+
+def test_limit_warnings_and_unused_options_before_the_fit(measured_csv):
+    """Read without sampling (workflow.preflight): the warnings the fit prints first
+    and summary.json keeps."""
+    from bayes_rr.study.data import ReadOptions, read_study
+    from bayes_rr.workflow.preflight import preflight
+
+    curve = load_spec("call-curve")
+    values = read_study(measured_csv).reference_value
+    high = float(values.max())
+    # every part within the upper limit: its place rests on the prior
+    study = read_study(measured_csv, ReadOptions(upper_limit=high + 0.01))
+    assert any("lies within the upper limit" in w for w in preflight(study, curve).warnings)
+    # the simulated appraisers reject above 10 (an upper limit): a lower one contradicts
+    study = read_study(measured_csv, ReadOptions(lower_limit=10.0))
+    assert any("reject parts within the lower limit" in w
+               for w in preflight(study, curve).warnings)  # fmt: skip
+    assert preflight(read_study(measured_csv, ReadOptions(upper_limit=10.0)), curve) == (
+        type(preflight(study, curve))()
+    )
+    # a limit and measured values given to a model that uses neither
+    unused = preflight(read_study(measured_csv, ReadOptions(upper_limit=10.0)),
+                       load_spec("crossed-logit")).ignored_options  # fmt: skip
+    assert any("limits (upper 10)" in line for line in unused)
+    assert any("measured reference values" in line for line in unused)
+
+
+def test_a_reference_column_latent_class_ignores_is_named(demo_csv):
+    from bayes_rr.study.data import read_study
+    from bayes_rr.workflow.preflight import preflight
+
+    unused = preflight(read_study(demo_csv), load_spec("latent-class")).ignored_options
+    assert unused and "reference status column is not used by the latent-class" in unused[0]
+    assert preflight(read_study(demo_csv), load_spec("reference-logit")).ignored_options == ()
+
+
+def test_unused_columns_are_said_before_sampling(demo_csv, tmp_path, monkeypatch):
+    import bayes_rr.workflow.fit as workflow
+
+    class Stop(Exception):
+        pass
+
+    def stop(*args, **kwargs):
+        raise Stop
+
+    monkeypatch.setattr(workflow, "sample_model", stop)
+    result = runner.invoke(app, ["fit", str(demo_csv), "--model", "latent-class", "--out",
+                                 str(tmp_path / "fit"), "--quiet"])  # fmt: skip
+    assert isinstance(result.exception, Stop | SystemExit)
+    assert "not used: the reference status column is not used by the latent-class" in " ".join(
+        result.output.split()
+    )

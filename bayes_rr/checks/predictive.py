@@ -282,6 +282,8 @@ PRIOR_KEYS = (
     "cross_disagreement",
     "rr_variance",
 )
+PRIOR_RATE_KEYS = ("false_reject_rate", "false_accept_rate")
+"""System-level wrong-call rates, for the models that give them."""
 
 
 def prior_predictive(
@@ -302,29 +304,43 @@ def prior_predictive(
     prior = draw_prior(spec, study, draws * extra, seed)
     if spec.earlier is not None:
         prior = _resample_earlier(prior, spec, draws, seed)
-    estimands = compute_estimands(prior, spec, study, seed)
+    with np.errstate(divide="ignore", invalid="ignore"):  # 0/0 shares are left undefined
+        estimands = compute_estimands(prior, spec, study, seed)
     rows = []
+    wanted = [("study", key) for key in PRIOR_KEYS] + [("system", k) for k in PRIOR_RATE_KEYS]
     for scope in ("study", "population"):
-        for key in PRIOR_KEYS:
-            name = f"{scope}__study__{key}"
+        for level, key in wanted:
+            name = f"{scope}__{level}__{key}"
             if name not in estimands:
                 continue
             values = estimands[name].to_numpy().ravel()
             values = values[np.isfinite(values)]
-            q = np.quantile(values, [0.025, 0.25, 0.5, 0.75, 0.975])
-            rows.append(
-                {
-                    "key": key,
-                    "scope": scope,
-                    "q025": float(q[0]),
-                    "q25": float(q[1]),
-                    "median": float(q[2]),
-                    "q75": float(q[3]),
-                    "q975": float(q[4]),
-                    "draws": int(values.size),
-                }
-            )
+            row = {"key": key, "scope": scope, "level": level, "draws": int(values.size)}
+            # a quantity undefined in every draw (no variance at all on this design) has
+            # no quantiles: said so, never an error
+            q = np.quantile(values, QUANTILES) if values.size else [None] * len(QUANTILES)
+            row.update({name: None if v is None else float(v) for name, v in
+                        zip(QUANTILE_NAMES, q, strict=True)})  # fmt: skip
+            rows.append(row)
     return rows
+
+
+QUANTILES = (0.025, 0.25, 0.5, 0.75, 0.975)
+QUANTILE_NAMES = ("q025", "q25", "median", "q75", "q975")
+
+
+def prior_cells(row: dict) -> tuple[str, str, str, str]:
+    """A prior predictive row as printed: the quantity's name (the glossary's), its
+    scope, the prior median and the 95% range (said, where every draw left it
+    undefined)."""
+    from bayes_rr.core import glossary
+
+    label = glossary.name(row["key"])
+    if row.get("level") == "system":
+        label += " (all appraisers)"
+    if row.get("median") is None:
+        return label, row["scope"], "-", "undefined in every prior draw"
+    return label, row["scope"], f"{row['median']:.3f}", f"{row['q025']:.3f} to {row['q975']:.3f}"
 
 
 def _resample_earlier(prior, spec: ModelSpec, draws: int, seed: int):

@@ -118,6 +118,7 @@ def run_fit(
     from bayes_rr.study.classical import classical_statistics
     from bayes_rr.study.data import read_study
     from bayes_rr.workflow.fit import fit_study
+    from bayes_rr.workflow.preflight import preflight
 
     # Claimed before the long work: a second run into the same folder is refused now,
     # not after both have sampled.
@@ -138,6 +139,11 @@ def run_fit(
             sampler=sampler,
             progress=_in_terminal(quiet),
         )
+        checked = preflight(study, spec, production)
+        for line in checked.ignored_options:
+            out.print(f"not used: {line}")
+        for line in checked.warnings:
+            out.print(f"warning: {line}")
         classical = classical_statistics(study, prob).as_dict()
         result = fit_study(
             study, spec, settings, prob=prob, interval=interval, production=production,

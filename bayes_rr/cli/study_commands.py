@@ -90,7 +90,7 @@ def prior(
     for row in rows:
         out.print(f"{row['about']} sets {row['sets']} = {row['prior']}")
     if data is not None:
-        from bayes_rr.checks.predictive import prior_predictive
+        from bayes_rr.checks.predictive import prior_cells, prior_predictive
         from bayes_rr.study.data import read_study
 
         study = read_study(data, ReadOptions())
@@ -101,8 +101,7 @@ def prior(
         check.add_column("median", no_wrap=True)
         check.add_column("95% range", no_wrap=True)
         for row in prior_rows:
-            check.add_row(row["key"].replace("_", " "), row["scope"], f"{row['median']:.3f}",
-                          f"{row['q025']:.3f} to {row['q975']:.3f}")  # fmt: skip
+            check.add_row(*prior_cells(row))
         out.print(check)
     out.print(f"model spec written to {out_file}; fit with: bayes-rr fit DATA --model {out_file}")
 

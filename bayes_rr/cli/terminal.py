@@ -92,10 +92,7 @@ def _print_classical_by_appraiser(result: dict, prob: float) -> None:
 
     rows = by_appraiser(result)
     with_reference = any(item["reference"] for item in rows)
-    caption = (
-        "own: the appraiser's own trials; alike: share of parts called the same on every "
-        "one"
-    )
+    caption = "own: the appraiser's own trials; alike: share of parts called the same on every one"
     if with_reference:
         caption += (
             "; ref: the reference; match: share of parts matching it on every trial; false "
@@ -427,14 +424,14 @@ def print_checks(document: dict) -> None:
         title=f"Posterior predictive check ({ppc['draws']} replicated studies)",
         caption=f"* flagged: {ppc['flag_when']}",
     )
-    # the statistic's name (an appraiser's in brackets) must stay readable at 80 columns
-    table.add_column("statistic", no_wrap=True, min_width=24)
+    # the statistic said in words (its key is in checks.json), wrapped between words
+    table.add_column("statistic", min_width=24)
     table.add_column("observed", no_wrap=True)
     table.add_column("replicated mean (95%)", no_wrap=True)
     table.add_column("p", no_wrap=True)
     for stat in ppc["statistics"]:
         table.add_row(
-            stat["name"],
+            stat.get("description") or stat["name"],
             _short_number(stat["observed"]),
             f"{_short_number(stat['replicated_mean'])} ({_short_number(stat['replicated_lower'])}"
             f"-{_short_number(stat['replicated_upper'])})",
@@ -443,6 +440,8 @@ def print_checks(document: dict) -> None:
     out.print(table)
     prior = document.get("prior_predictive") or []
     if prior:
+        from bayes_rr.checks.predictive import prior_cells
+
         before = Table(
             title="Prior predictive check: what the priors alone imply for this design",
             caption="prior draws before the calls are seen; a prior range much wider than "
@@ -451,13 +450,14 @@ def print_checks(document: dict) -> None:
         for name in ("quantity", "scope", "prior median", "prior 95% range"):
             before.add_column(name, justify="left" if name in ("quantity", "scope") else "right")
         for row in prior:
-            before.add_row(row["key"].replace("_", " "), row["scope"], f"{row['median']:.3f}",
-                           f"{row['q025']:.3f} to {row['q975']:.3f}")  # fmt: skip
+            before.add_row(*prior_cells(row))
         out.print(before)
     flagged = ppc["flagged"]
     out.print(ppc["verdict"][0].upper() + ppc["verdict"][1:] + ".")
     if flagged:
-        out.print(f"flagged: {', '.join(flagged)}")
+        words = {stat["name"]: stat.get("description") or stat["name"]
+                 for stat in ppc["statistics"]}  # fmt: skip
+        out.print(f"flagged: {'; '.join(words.get(name, name) for name in flagged)}")
     if not document["converged"]:
         out.print("The fit did not pass the convergence gate: these checks are of a posterior "
                   "that must not be used.", style="bold red")  # fmt: skip

@@ -78,6 +78,7 @@ def summary_document(result) -> dict:
     rows = [jsonable(asdict(r)) for r in result.estimand_rows]
     diagnostics = result.diagnostics.as_dict()
     limitations = list(result.limitations)
+    checked = getattr(result, "preflight", None)
     return {
         "generator": f"{GENERATOR} {__version__}",
         "prob": result.prob,
@@ -109,6 +110,8 @@ def summary_document(result) -> dict:
         "prior_from": result.prior_from,
         **_production_blocks(result, diagnostics["ok"]),
         "limitations": [lim.as_dict() for lim in limitations],
+        "ignored_options": list(getattr(checked, "ignored_options", ())),
+        "data_warnings": list(getattr(checked, "warnings", ())),
         "estimands": rows,
         "parameters": [jsonable(asdict(r)) for r in result.parameter_rows],
         "r_hat_threshold": R_HAT_MAX,

@@ -59,6 +59,8 @@ def answer_box(inputs: ReportInputs) -> str:
             )
         )
     items = [lim["sentence"] for lim in summary.get("limitations", [])]
+    items += [f"Before the fit: {w}." for w in summary.get("data_warnings", [])]
+    items += [f"Not used: {w}." for w in summary.get("ignored_options", [])]
     items += [row["sentence"] for row in summary.get("criteria", [])]
     if summary.get("criteria"):
         items.append("The criteria's thresholds are set by the user's organisation; they are "

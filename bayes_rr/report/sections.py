@@ -43,19 +43,17 @@ def model_section(inputs: ReportInputs) -> str:
     parts.append(f"<pre>{esc(run['spec_text'])}</pre>")
     prior = (inputs.checks or {}).get("prior_predictive")
     if prior:
-        posterior = study_rows(summary)
+        from bayes_rr.checks.predictive import prior_cells
+
+        posterior = {(r["key"], r["scope"], r["level"]): r for r in summary["estimands"]
+                     if r.get("appraiser") is None and r.get("part") is None}  # fmt: skip
         rows = []
         for row in prior:
-            post = posterior.get((row["key"], row["scope"]))
+            post = posterior.get((row["key"], row["scope"], row.get("level", "study")))
             rows.append(
-                [
-                    esc(row["key"].replace("_", " ")),
-                    esc(row["scope"]),
-                    f"{row['median']:.3f}",
-                    f"{row['q025']:.3f} to {row['q975']:.3f}",
-                    interval_text(post, 3) if summary["diagnostics"]["ok"] else "-",
-                ]
-            )
+                [*(esc(cell) for cell in prior_cells(row)),
+                 interval_text(post, 3) if summary["diagnostics"]["ok"] else "-"]
+            )  # fmt: skip
         parts.append(
             "<p>Prior predictive check: what the priors alone imply for this design, before "
             "the calls are seen, next to the posterior. Where the prior range is much wider "

@@ -47,6 +47,7 @@ from bayes_rr.results.readings import (  # noqa: F401 (HYPER_PARAMETERS re-expor
     wrong_call_summary,
 )
 from bayes_rr.study.data import StudyData
+from bayes_rr.workflow.preflight import Preflight, preflight
 
 PACKAGES = ("pymc", "pytensor", "nutpie", "arviz", "numpy", "scipy", "pandas", "xarray")
 
@@ -81,6 +82,9 @@ class FitResult:
     production: dict | None = None
     """What was assumed of production, the strategies compared and the decision
     (results.production.production_document); None without a production file."""
+    preflight: Preflight | None = None
+    """Options and columns the model does not use, and warnings about the data against
+    the model, found before sampling."""
 
 
 def package_versions() -> dict[str, str]:
@@ -144,6 +148,7 @@ def fit_study(
     from bayes_rr.families.pymc_parts import parameterizations
 
     _check_production(production, criteria, spec, study)
+    checked = preflight(study, spec, production)
     stages = [settings]
     if two_stage and settings.draws > FIRST_STAGE_DRAWS:
         stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
@@ -243,6 +248,7 @@ def fit_study(
         prior_sensitivity=sensitivity,
         prior_from=prior_from,
         production=summary.production,
+        preflight=checked,
     )
 
 
