@@ -518,3 +518,23 @@ def test_unused_columns_are_said_before_sampling(demo_csv, tmp_path, monkeypatch
     assert "not used: the reference status column is not used by the latent-class" in " ".join(
         result.output.split()
     )
+
+
+def test_decimal_commas_are_read_when_a_column_uses_them_throughout(tmp_path):
+    """A semicolon CSV as European spreadsheets save it (common practice there): decimal
+    commas in the measured values are read and said; ambiguous or mixed ones refused
+    with the fix."""
+    from bayes_rr.study.data import read_study
+
+    rows = ["part;appraiser;trial;call;reference_value"]
+    rows += [f"P{i};{a};{t};{'fail' if i > 2 else 'pass'};10,0{i}47"
+             for i in range(1, 5) for a in ("A", "B") for t in (1, 2)]  # fmt: skip
+    study = read_study(write(tmp_path, "eu.csv", "\n".join(rows) + "\n"))
+    assert study.reference_value.to_dict() == {f"P{i}": float(f"10.0{i}47") for i in range(1, 5)}
+    assert any("decimal commas" in note for note in study.notes)
+    thousands = "\n".join(r.replace("10,0", "1,0").replace("47", "4") for r in rows) + "\n"
+    result = runner.invoke(app, ["describe", str(write(tmp_path, "k.csv", thousands))])
+    assert "decimals or thousands" in one_line_error(result)
+    mixed = "\n".join(rows).replace("10,0147", "10.0147") + "\n"
+    result = runner.invoke(app, ["describe", str(write(tmp_path, "m.csv", mixed))])
+    assert "decimal commas are read when every value" in one_line_error(result)

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import re
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -103,6 +104,38 @@ def _validated_calls(long: pd.DataFrame, options: ReadOptions, source: str) -> t
     return long, notes
 
 
+NUMBER_ROLES = ("reference_value", "lower_limit", "upper_limit")
+_DECIMAL_COMMA = re.compile(r"^[+-]?\d+(,\d+)?$")
+_THOUSANDS = re.compile(r"^[+-]?\d{1,3}(,\d{3})+$")
+
+
+def _decimal_commas(long: pd.DataFrame, source: str) -> tuple[pd.DataFrame, list[str]]:
+    """Numbers written with a decimal comma (as spreadsheets in much of Europe save them)
+    are read when every number of the column uses one; a column where every comma could
+    also separate thousands ("1,250") is refused with the fix, never guessed."""
+    notes = []
+    for role in NUMBER_ROLES:
+        if role not in long or long[role].isna().all():
+            continue
+        text = long[role].astype(str).str.strip()
+        given = text[~long[role].map(is_missing)]
+        if not given.str.contains(",", regex=False).any():
+            continue
+        if not given.map(lambda v: bool(_DECIMAL_COMMA.match(v))).all():
+            continue  # mixed or other text: the number check names the bad value
+        with_comma = given[given.str.contains(",", regex=False)]
+        if with_comma.map(lambda v: bool(_THOUSANDS.match(v))).all():
+            raise DataError(
+                f"{source}: the {role.replace('_', ' ')} column holds {with_comma.iloc[0]!r}, "
+                "where the comma may mark decimals or thousands; save the file with decimal "
+                "points (or without thousands separators) and read it again"
+            )
+        points = text.str.replace(",", ".", regex=False)
+        long = long.assign(**{role: long[role].where(long[role].map(is_missing), points)})
+        notes.append(f"read decimal commas in the {role.replace('_', ' ')} column (10,05 as 10.05)")
+    return long, notes
+
+
 def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) -> pd.Series | None:
     if long[role].isna().all():
         return None
@@ -135,7 +168,15 @@ def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) 
         if numeric.isna().any():
             rows = values.loc[numeric.isna(), "row"].tolist()
             bad = values.loc[numeric.isna(), role].iloc[0]
-            raise DataError(f"{source}: reference value {bad!r} at {lines(rows)} is not a number")
+            hint = (
+                "; decimal commas are read when every value of the column uses them (or save "
+                "the file with decimal points)"
+                if "," in str(bad)
+                else ""
+            )
+            raise DataError(
+                f"{source}: reference value {bad!r} at {lines(rows)} is not a number{hint}"
+            )
         infinite = ~np.isfinite(numeric.to_numpy(dtype=float))
         if infinite.any():
             rows = values.loc[infinite, "row"].tolist()
@@ -318,6 +359,8 @@ def study_from_frame(
         )
     long, used = to_long(frame, options, source)
     long, call_notes = _validated_calls(long, options, source)
+    long, comma_notes = _decimal_commas(long, source)
+    call_notes = [*call_notes, *comma_notes]
     reference = _per_part(long, "reference", source, options)
     reference_value = _per_part(long, "reference_value", source, options)
     stratum = _per_part(long, "stratum", source, options)
