@@ -321,8 +321,12 @@ def compare(
 
     result = compare_folders(fit_dirs, out_file, overwrite=overwrite)
     table = Table(title=result["method"])
-    for col in ("model", "elpd_loo (SE)", "elpd diff (SE)", "p_loo", "weight", "Pareto k > 0.7"):
-        table.add_column(col)
+    # a model's name is never broken across lines (names run to about 30 characters)
+    longest = max(len(row["model"]) for row in result["models"])
+    table.add_column("model", min_width=min(longest, 30))
+    for col, width in (("elpd_loo (SE)", 13), ("elpd diff (SE)", 12), ("p_loo", 5),
+                       ("weight", 6), ("cells k > 0.7", 5)):  # fmt: skip
+        table.add_column(col, width=width)
     for row in result["models"]:
         table.add_row(
             row["model"],

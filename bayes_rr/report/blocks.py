@@ -52,7 +52,10 @@ img.figure.half { max-width: 48%; display: inline-block; vertical-align: top; }
   table, img.figure, .answer { break-inside: avoid; }
   img.figure { max-height: 120mm; width: auto; }
   table { font-size: 8.5pt; }
+  .screen-only { display: none; }
+  .print-only { display: block; }
 }
+.print-only { display: none; }
 """
 
 
@@ -80,14 +83,16 @@ def esc(value: object) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
 
-def figure_tag(fig, alt: str) -> str:
-    """A matplotlib figure as an inline base64 SVG image."""
+def figure_tag(fig, alt: str, extra_class: str = "") -> str:
+    """A matplotlib figure as an inline base64 SVG image (``extra_class``, e.g.
+    ``screen-only``, added to its class)."""
     if fig is None:
         return ""
     buffer = io.BytesIO()
     fig.savefig(buffer, format="svg")
     data = base64.b64encode(buffer.getvalue()).decode("ascii")
-    return f'<img class="figure" alt="{esc(alt)}" src="data:image/svg+xml;base64,{data}">'
+    classes = f"figure {extra_class}".strip()
+    return f'<img class="{classes}" alt="{esc(alt)}" src="data:image/svg+xml;base64,{data}">'
 
 
 def number(value, digits: int = 4) -> str:

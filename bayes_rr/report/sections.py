@@ -404,8 +404,8 @@ def checks_section(inputs: ReportInputs) -> str:
             _by_kind(s["observed"]),
             f"{_by_kind(s['replicated_mean'])} ({_by_kind(s['replicated_lower'])} to "
             f"{_by_kind(s['replicated_upper'])})",
-            number(s["p_value"], 3),
-            "<span class='flag'>FLAG</span>" if s["flagged"] else "",
+            number(s["p_value"], 3)
+            + (" <span class='flag'>flagged</span>" if s["flagged"] else ""),
         ]
         for s in ppc["statistics"]
     ]
@@ -413,10 +413,14 @@ def checks_section(inputs: ReportInputs) -> str:
         f"<p>Method: {esc(ppc['method'])}, {ppc['draws']} replicated studies with the "
         f"same design. p-value: {esc(ppc['p_value'])}; flagged when {esc(ppc['flag_when'])}."
         f" Verdict: {esc(ppc['verdict'])}.</p>"
-        + html_table(
-            ["statistic", "observed", "replicated mean (95% range)", "p", ""], rows, {1, 2, 3}
+        + html_table(["statistic", "observed", "replicated mean (95% range)", "p"], rows, {1, 2, 3})
+        # the many small panels cannot be read on paper: in print the table above stands
+        # for them (it holds the same numbers)
+        + figure_tag(
+            inputs.figures.get("checks"), "posterior predictive check panels", "screen-only"
         )
-        + figure_tag(inputs.figures.get("checks"), "posterior predictive check panels")
+        + "<p class='note print-only'>The check's panels are in the report on screen; the "
+        "table above holds the same numbers.</p>"
     )
 
 
