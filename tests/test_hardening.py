@@ -538,3 +538,28 @@ def test_decimal_commas_are_read_when_a_column_uses_them_throughout(tmp_path):
     mixed = "\n".join(rows).replace("10,0147", "10.0147") + "\n"
     result = runner.invoke(app, ["describe", str(write(tmp_path, "m.csv", mixed))])
     assert "decimal commas are read when every value" in one_line_error(result)
+
+
+# --- criteria on one appraiser ----------------------------------------------------------------
+
+
+def test_a_criterion_on_one_appraiser(fits):
+    """The share of draws meeting it, from that appraiser's own draws (the definition in
+    docs/statistics.md); a name not in the data, or another scope, refused."""
+    from bayes_rr.core.errors import SpecError
+    from bayes_rr.results.decisions import check_available, evaluate_criteria, parse_criteria
+
+    estimands = fits["crossed-logit"].estimands
+    name = str(estimands["appraiser"].to_numpy()[0])
+    text = (f'[[criterion]]\nkey = "call_rate"\nscope = "study"\nappraiser = "{name}"\n'
+            "below = 0.5\nrequired_probability = 0.5\n")  # fmt: skip
+    criteria = parse_criteria(text)
+    check_available(criteria, estimands)
+    row = evaluate_criteria(criteria, estimands)[0]
+    draws = estimands["study__appraiser__call_rate"].sel(appraiser=name).to_numpy().ravel()
+    assert row["probability"] == pytest.approx(float(np.mean(draws < 0.5)))
+    assert row["appraiser"] == name and row["sentence"].startswith(f"{name}'s")
+    with pytest.raises(SpecError, match="no such appraiser"):
+        check_available(parse_criteria(text.replace(name, "Nobody")), estimands)
+    with pytest.raises(SpecError, match="about the study's parts"):
+        parse_criteria(text.replace('scope = "study"', 'scope = "population"'))

@@ -169,6 +169,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         print_rates(summary)
     if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
         print_curves(summary)
+    # the verdicts right after the rates, as in the report's answer box
+    print_criteria(summary)
     if not any(r["level"] == "study" and r["key"] == "rr_variance" for r in summary["estimands"]):
         _print_footer(summary, diag)
         return
@@ -230,7 +232,6 @@ def print_criteria(summary: dict) -> None:
 
 
 def _print_footer(summary: dict, diag: dict) -> None:
-    print_criteria(summary)
     for sentence in (summary.get("comparisons") or {}).get("sentences", []):
         out.print(f"appraisers: {sentence}")
     for limitation in summary.get("limitations", []):

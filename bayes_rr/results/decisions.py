@@ -40,11 +40,15 @@ class Criterion:
     direction: str  # "below" or "above"
     required_probability: float
     label: str = ""
+    appraiser: str | None = None
+    """One appraiser's value (study scope), or None for the study or system value."""
 
     def sentence(self, probability: float, met: bool) -> str:
         from bayes_rr.core import glossary
 
         name = self.label or glossary.name(self.key)
+        if self.appraiser is not None:
+            name = f"{self.appraiser}'s {name}"
         verdict = "met" if met else "not met"
         return (
             f"{name} ({self.scope} scope) is {self.direction} {self.threshold:g} with "
@@ -72,7 +76,7 @@ def parse_criteria(text: str, source: str = "<criteria>") -> tuple[Criterion, ..
     if not isinstance(tables, list) or not tables:
         raise SpecError(f"{source}: no [[criterion]] table; see the README for an example")
     out = []
-    allowed = {"key", "scope", "below", "above", "required_probability", "label"}
+    allowed = {"key", "scope", "below", "above", "required_probability", "label", "appraiser"}
     for k, table in enumerate(tables, 1):
         where = f"criterion {k}"
         extra = sorted(set(table) - allowed)
@@ -100,7 +104,18 @@ def parse_criteria(text: str, source: str = "<criteria>") -> tuple[Criterion, ..
         if not isinstance(label, str):
             raise SpecError(f"{source}: {where}.label = {label!r}: expected a string")
         threshold = _number(table[sides[0]], f"{where}.{sides[0]}", source)
-        out.append(Criterion(key, scope, threshold, sides[0], required, label))
+        appraiser = table.get("appraiser")
+        if appraiser is not None and (not isinstance(appraiser, str) or not appraiser):
+            raise SpecError(
+                f"{source}: {where}.appraiser = {appraiser!r}: expected an appraiser's name "
+                "as in the data"
+            )
+        if appraiser is not None and scope != "study":
+            raise SpecError(
+                f"{source}: {where}: appraiser = {appraiser!r} with scope = {scope!r}; a "
+                "criterion on one appraiser is about the study's parts: use scope = \"study\""
+            )
+        out.append(Criterion(key, scope, threshold, sides[0], required, label, appraiser))
     return tuple(out)
 
 
@@ -122,7 +137,7 @@ def criteria_from_rows(rows: list[dict], source: str) -> tuple[Criterion, ...]:
             required = float(row["required_probability"])
             criterion = Criterion(
                 str(row["key"]), str(row["scope"]), float(row[side]), side, required,
-                str(row.get("label", "")),
+                str(row.get("label", "")), row.get("appraiser"),
             )  # fmt: skip
             out.append(criterion)
         except (KeyError, TypeError, ValueError):
@@ -153,6 +168,8 @@ def check_keys(criteria: tuple[Criterion, ...]) -> None:
 
 
 def _draws_of(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
+    if criterion.appraiser is not None:
+        return _appraiser_criterion_draws(estimands, criterion)
     for level in LEVELS:
         name = f"{criterion.scope}__{level}__{criterion.key}"
         if name in estimands and estimands[name].ndim == 2:
@@ -166,6 +183,26 @@ def _draws_of(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
         f"criterion key {criterion.key!r} ({criterion.scope} scope) is not a study- or "
         f"system-level estimand of this fit; expected one of {known}"
     )
+
+
+def _appraiser_criterion_draws(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
+    name = f"{criterion.scope}__appraiser__{criterion.key}"
+    if name not in estimands:
+        known = sorted({
+            n.split("__")[2] for n in estimands.data_vars
+            if n.startswith(f"{criterion.scope}__appraiser__")
+        })  # fmt: skip
+        raise SpecError(
+            f"criterion key {criterion.key!r} with appraiser = {criterion.appraiser!r}: not "
+            f"a per-appraiser result of this model; expected one of {known}"
+        )
+    names = [str(a) for a in estimands[name]["appraiser"].to_numpy()]
+    if criterion.appraiser not in names:
+        raise SpecError(
+            f"criterion on appraiser {criterion.appraiser!r}: no such appraiser in the data; "
+            f"the appraisers are {names}"
+        )
+    return estimands[name].sel(appraiser=criterion.appraiser).to_numpy().ravel()
 
 
 def check_available(
@@ -182,6 +219,9 @@ def check_available(
                     f"criterion key {criterion.key!r} (production scope) is not a production "
                     f"figure; expected one of {sorted((*ROW_KEYS, 'bad_share'))}"
                 )
+            continue
+        if criterion.appraiser is not None:
+            _appraiser_criterion_draws(estimands, criterion)
             continue
         scopes = sorted({
             name.split("__")[0] for name in estimands.data_vars

@@ -82,7 +82,18 @@ def check_request(request: PlanRequest) -> None:
                             "of simulated studies in which every criterion is met")  # fmt: skip
     if request.target_width is not None and request.target_assurance is not None:
         raise SpecError("give --target-width or --target-assurance, not both")
+    _check_appraiser_criteria(request)
     _check_production(request)
+
+
+def _check_appraiser_criteria(request: PlanRequest) -> None:
+    named = [c.appraiser for c in request.criteria if c.appraiser is not None]
+    if named:
+        raise SpecError(
+            f"a criterion names the appraiser {named[0]!r}: simulated studies have appraisers "
+            "of their own, not the study's; plan with criteria on the study or the system, "
+            "and judge one appraiser in the fit (bayes-rr fit --criteria)"
+        )
 
 
 def _check_production(request: PlanRequest) -> None:
