@@ -47,7 +47,7 @@ class Criterion:
         from bayes_rr.core import glossary
 
         name = self.label or glossary.name(self.key)
-        if self.appraiser is not None:
+        if self.appraiser is not None and not self.label:
             name = f"{self.appraiser}'s {name}"
         verdict = "met" if met else "not met"
         return (
@@ -167,21 +167,34 @@ def check_keys(criteria: tuple[Criterion, ...]) -> None:
             )
 
 
+def _keyed_draws(estimands: xr.Dataset, scope: str) -> dict[str, xr.DataArray]:
+    """Every study- or system-level estimand of ``scope`` a criterion may name: a
+    scalar by its key, one with a further dimension (the side of a limit) as
+    ``key[dim=value]``."""
+    out = {}
+    for name in estimands.data_vars:
+        parts = name.split("__")
+        if len(parts) != 3 or parts[0] != scope or parts[1] not in LEVELS:
+            continue
+        values = estimands[name]
+        if values.ndim == 2:
+            out[parts[2]] = values
+        elif values.ndim == 3:
+            dim = values.dims[2]
+            for coord in values[dim].to_numpy():
+                out[f"{parts[2]}[{dim}={coord}]"] = values.sel({dim: coord})
+    return out
+
+
 def _draws_of(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
     if criterion.appraiser is not None:
         return _appraiser_criterion_draws(estimands, criterion)
-    for level in LEVELS:
-        name = f"{criterion.scope}__{level}__{criterion.key}"
-        if name in estimands and estimands[name].ndim == 2:
-            return estimands[name].to_numpy().ravel()
-    known = sorted({
-        name.split("__")[2] for name in estimands.data_vars
-        if name.split("__")[1] in LEVELS and name.startswith(criterion.scope + "__")
-        and estimands[name].ndim == 2
-    })  # fmt: skip
+    found = _keyed_draws(estimands, criterion.scope)
+    if criterion.key in found:
+        return found[criterion.key].to_numpy().ravel()
     raise SpecError(
         f"criterion key {criterion.key!r} ({criterion.scope} scope) is not a study- or "
-        f"system-level estimand of this fit; expected one of {known}"
+        f"system-level estimand of this fit; expected one of {sorted(found)}"
     )
 
 
@@ -223,16 +236,11 @@ def check_available(
         if criterion.appraiser is not None:
             _appraiser_criterion_draws(estimands, criterion)
             continue
-        scopes = sorted({
-            name.split("__")[0] for name in estimands.data_vars
-            if name.split("__")[2:] == [criterion.key] and estimands[name].ndim == 2
-        })  # fmt: skip
+        scopes = [scope for scope in ("study", "population")
+                  if criterion.key in _keyed_draws(estimands, scope)]  # fmt: skip
         if criterion.scope in scopes:
             continue
-        known = sorted({
-            name.split("__")[2] for name in estimands.data_vars
-            if name.startswith(criterion.scope + "__") and estimands[name].ndim == 2
-        })  # fmt: skip
+        known = sorted(_keyed_draws(estimands, criterion.scope))
         elsewhere = f"; it is given in {' and '.join(scopes)} scope" if scopes else ""
         raise SpecError(
             f"criterion key {criterion.key!r} ({criterion.scope} scope): the {model} model "
