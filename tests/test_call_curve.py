@@ -1,4 +1,4 @@
-"""Call curves along a measured reference value (estimands.md family 5).
+"""Call curves along a measured reference value (docs/statistics.md family 5).
 
 Outside reference: with a probit curve and a normal production distribution the
 expected false accept rate has a closed form through the bivariate normal CDF

@@ -149,7 +149,7 @@ def test_study_scope_identity_draw_by_draw():
 
 @pytest.mark.parametrize(("a", "b"), [(2.0, 1.0), (0.5, 0.5), (3.0, 7.0), (20.0, 2.0)])
 def test_beta_expectation_identity_against_quad(a, b):
-    # E[p(1-p)] = pi(1-pi) - Var(p) (check-values.md, common practice), for Beta(a, b):
+    # E[p(1-p)] = pi(1-pi) - Var(p) (common practice; docs/statistics.md), for Beta(a, b):
     # scipy.integrate.quad of p(1-p) Beta(p; a, b).
     expected = integrate.quad(lambda x: x * (1 - x) * stats.beta.pdf(x, a, b), 0, 1)[0]
     pi, phi = a / (a + b), a + b
@@ -170,7 +170,7 @@ def test_beta_binomial_variance_matches_scipy_betabinom(n, a, b):
 
 
 def test_scipy_betabinom_reference_identities():
-    # check-values.md: betabinom(5, 2, 1) pmf = (k+1)/21, mean 10/3, variance 20/9.
+    # scipy.stats.betabinom: betabinom(5, 2, 1) pmf = (k+1)/21, mean 10/3, variance 20/9.
     k = np.arange(6)
     np.testing.assert_allclose(stats.betabinom(5, 2, 1).pmf(k), (k + 1) / 21)
     assert stats.betabinom(5, 2, 1).var() == pytest.approx(20 / 9)

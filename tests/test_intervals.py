@@ -13,7 +13,7 @@ from bayes_rr.core.intervals import (
 )
 
 # Newcombe (1998), Statistics in Medicine 17:857-872, Table I (transcribed, see
-# shared/check-values.md): x, n, Wilson, Clopper-Pearson, all to 4 dp.
+# docs/statistics.md (outside reference values)): x, n, Wilson, Clopper-Pearson, all to 4 dp.
 NEWCOMBE_TABLE_I = [
     (81, 263, (0.2553, 0.3662), (0.2527, 0.3676)),
     (15, 148, (0.0624, 0.1605), (0.0578, 0.1617)),
@@ -49,7 +49,7 @@ def test_wilson_matches_scipy_binomtest(x, n):
 
 
 def test_jeffreys_check_values():
-    # shared/check-values.md [C]: Jeffreys equal-tailed Beta(x+1/2, n-x+1/2).
+    # docs/statistics.md (outside reference values) [C]: Jeffreys equal-tailed Beta(x+1/2, n-x+1/2).
     a = jeffreys(81, 263)
     assert (a.lower, a.upper) == pytest.approx((0.2545, 0.3656), abs=6e-5)
     b = jeffreys(18, 20)
@@ -87,7 +87,7 @@ def test_hybrid_matches_statsmodels_newcomb(x1, n1, x2, n2):
 
 def test_agresti_caffo_is_clipped_where_statsmodels_is_not():
     # statsmodels' "agresti-caffo" gives an upper limit of 1.0502 for 10/10 - 0/20
-    # (shared/check-values.md); a difference of proportions cannot exceed 1.
+    # (docs/statistics.md (outside reference values)); a difference of proportions cannot exceed 1.
     _, upp = confint_proportions_2indep(10, 10, 0, 20, method="agresti-caffo", compare="diff")
     assert upp > 1.0
     assert agresti_caffo(10, 10, 0, 20).upper == 1.0

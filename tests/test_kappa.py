@@ -51,7 +51,7 @@ def test_fleiss_standard_errors(fleiss_table):
     ("category", "expected"), [(0, 0.2448), (1, 0.2448), (2, 0.5200), (3, 0.4711), (4, 0.5661)]
 )
 def test_fleiss_binary_category_kappas(fleiss_table, category, expected):
-    # Each category against the rest (binary), shared/check-values.md [C];
+    # Each category against the rest (binary), docs/statistics.md (outside reference values) [C];
     # Fleiss (1971) printed .248 .248 .517 .470 .565 from rounded p_j [2].
     binary = np.column_stack(
         [fleiss_table.sum(axis=1) - fleiss_table[:, category], fleiss_table[:, category]]

@@ -62,7 +62,7 @@ def test_corrected_reproducibility_is_unbiased_simulation_check():
     # Simulation check (no published value): a fixed p matrix, every part the same
     # row of p over three appraisers, binomial calls. The plug-in V is biased up by
     # (J - 1)/J^2 sum_j p_j(1 - p_j)/n = 0.046 here; the corrected V (T corrected too,
-    # estimands.md) averages to the true V = mean_j (p_j - pi)^2.
+    # docs/statistics.md) averages to the true V = mean_j (p_j - pi)^2.
     rng = np.random.default_rng(11)
     p = np.array([0.2, 0.5, 0.7])
     n, parts = 3, 20000

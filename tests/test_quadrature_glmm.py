@@ -38,7 +38,8 @@ def test_cbpp_quadrature_likelihood_matches_published_fit(nodes):
         options={"gtol": 1e-8},
     )  # fmt: skip
     assert np.abs(fit.jac).max() < 1e-3  # a stationary point (BFGS may stop on precision)
-    # check-values.md: adaptive quadrature with 25 nodes [C]: variance 0.4193,
+    # adaptive quadrature with 25 nodes (docs/statistics.md, outside reference values;
+    # computed): variance 0.4193,
     # coefficients -1.3992 -0.9914 -1.1278 -1.5795, logLik -91.983.
     np.testing.assert_allclose(fit.x[:4], [-1.3992, -0.9914, -1.1278, -1.5795], atol=1e-3)
     assert np.exp(2 * fit.x[4]) == pytest.approx(0.4193, abs=1e-3)

@@ -1,9 +1,9 @@
-"""False reject and false accept rates (estimands.md families 3 and 4).
+"""False reject and false accept rates (docs/statistics.md families 3 and 4).
 
 Outside references: the dental data of Espeland and Handelman (1989), with the
 two-class maximum-likelihood fit printed in the randomLCA vignette (values in
-shared/check-values.md, tag [S]); an EM fit of our own as a second, independent
-reference; scipy.integrate.quad for the logistic-normal rates; direct enumeration
+docs/statistics.md, outside reference values); an EM fit of our own as a second,
+independent reference; scipy.integrate.quad for the logistic-normal rates; direct enumeration
 for the class likelihoods; simulated studies with known rates.
 """
 
@@ -24,13 +24,13 @@ from bayes_rr.study.data import study_from_cells
 
 # Espeland & Handelman (1989): five dentists, 3869 patients; counts of the 32 call
 # patterns in binary order (dentist 1 most significant), read in randomLCA's data file
-# `dentistry` [S] (shared/check-values.md).
+# `dentistry` [S] (docs/statistics.md (outside reference values)).
 DENTAL_COUNTS = [1880, 789, 43, 75, 23, 63, 8, 22, 188, 191, 17, 67, 15, 85, 8, 56,
                  22, 26, 6, 14, 1, 20, 2, 17, 2, 20, 6, 27, 3, 72, 1, 100]  # fmt: skip
 # Two-class maximum-likelihood fit printed in the randomLCA vignette [S]:
 DENTAL_SENSITIVITY = np.array([0.4033508, 0.7128814, 0.5981284, 0.4888448, 0.9154706])
 DENTAL_FALSE_POSITIVE = np.array([0.01061849, 0.10198791, 0.01359123, 0.03156301, 0.30527875])
-DENTAL_PREVALENCE = 0.196066  # [C] in check-values.md: an EM fit reproducing the table
+DENTAL_PREVALENCE = 0.196066  # computed: an EM fit reproducing the table (docs/statistics.md)
 
 
 def dental_calls() -> np.ndarray:

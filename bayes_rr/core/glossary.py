@@ -97,7 +97,7 @@ SCOPES = {
     "population": "a new appraiser from the same population",
     "production": "the study's appraisers on the line's parts, as the production file states them",
 }
-"""Scopes in words (estimands.md): results about the appraisers who took part, or about
+"""Scopes in words (docs/statistics.md): results about the appraisers who took part, or about
 an appraiser not in the study."""
 
 

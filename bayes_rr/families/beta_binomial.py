@@ -45,7 +45,7 @@ CONCENTRATION_WHY = (
 INFO = FamilyInfo(
     "beta_binomial",
     "beta-binomial, appraisers exchangeable within a part: "
-    "p_ij ~ Beta(pi_i phi, (1 - pi_i) phi) (estimands.md family 1)",
+    "p_ij ~ Beta(pi_i phi, (1 - pi_i) phi) (docs/statistics.md family 1)",
     {t.name: t for t in (PART_TERM, REFERENCE_TERM)},
     required_terms=("part",),
     concentration_prior=CONCENTRATION_PRIOR,

@@ -78,7 +78,7 @@ INFO = FamilyInfo(
     "call_curve",
     "call curve: p_ij = F((x_i - t_j)/w_j) for a measured reference value x_i and a "
     "specification limit, with each appraiser's effective limit t_j and transition "
-    "width w_j (estimands.md family 5)",
+    "width w_j (docs/statistics.md family 5)",
     {t.name: t for t in (LIMIT_TERM, WIDTH_TERM)},
     intercepts=CURVE_INTERCEPTS,
     links=LINKS,

@@ -48,7 +48,7 @@ EFFECT_DIMS = {"part": "part", "appraiser": "appraiser", "interaction": "cell"}
 
 INFO = FamilyInfo(
     "logit",
-    "crossed hierarchical logit: logit p_ij = mu + a_i + b_j + c_ij (estimands.md family 2)",
+    "crossed hierarchical logit: logit p_ij = mu + a_i + b_j + c_ij (docs/statistics.md family 2)",
     {t.name: t for t in (PART_TERM, APPRAISER_TERM, INTERACTION_TERM, REFERENCE_TERM)},
     required_terms=("part",),
 )

@@ -1,4 +1,4 @@
-"""Call curves along a measured reference value (estimands.md family 5), numpy core.
+"""Call curves along a measured reference value (docs/statistics.md family 5), numpy core.
 
 From posterior draws of each appraiser's effective limits and transition width:
 the call probability of any part, and, given a production distribution of the

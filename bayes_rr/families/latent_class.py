@@ -56,7 +56,7 @@ INFO = FamilyInfo(
     "latent_class",
     "latent class: each part's status r(i) unknown, P(reject part) = theta, summed out "
     "of the likelihood; logit p_ij = mu_r + a_i + b_j,r with mu_reject > mu_accept "
-    "(estimands.md family 4)",
+    "(docs/statistics.md family 4)",
     {t.name: t for t in (PART_TERM, STATUS_APPRAISER_TERM)},
     intercepts=STATUS_INTERCEPTS,
     prevalence_prior=PREVALENCE_PRIOR,

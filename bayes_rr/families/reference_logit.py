@@ -59,7 +59,7 @@ if TYPE_CHECKING:
 INFO = FamilyInfo(
     "reference_logit",
     "reference-aware logit: logit p_ij = mu_r(i) + a_i + b_j,r(i) + c_ij with the part's "
-    "known reference status r(i) (estimands.md family 3)",
+    "known reference status r(i) (docs/statistics.md family 3)",
     {t.name: t for t in (PART_TERM, STATUS_APPRAISER_TERM, INTERACTION_TERM)},
     intercepts=STATUS_INTERCEPTS,
     needs=("reference",),

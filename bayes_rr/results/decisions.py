@@ -113,7 +113,7 @@ def parse_criteria(text: str, source: str = "<criteria>") -> tuple[Criterion, ..
         if appraiser is not None and scope != "study":
             raise SpecError(
                 f"{source}: {where}: appraiser = {appraiser!r} with scope = {scope!r}; a "
-                "criterion on one appraiser is about the study's parts: use scope = \"study\""
+                'criterion on one appraiser is about the study\'s parts: use scope = "study"'
             )
         out.append(Criterion(key, scope, threshold, sides[0], required, label, appraiser))
     return tuple(out)

@@ -1,4 +1,4 @@
-"""The quantities of estimands.md, computed from posterior draws.
+"""The quantities of docs/statistics.md, computed from posterior draws.
 
 A numpy core (functions of arrays with draws on the leading axes) under a thin
 xarray layer that labels draws with ``chain``, ``draw``, ``part`` and
@@ -6,7 +6,7 @@ xarray layer that labels draws with ``chain``, ``draw``, ``part`` and
 conjugate or prior draw of latent call probabilities of cells, from a seeded
 generator.
 
-Keys and scopes (see estimands.md):
+Keys and scopes (see docs/statistics.md):
 
 * per part (level ``part``), scopes ``study`` (the study's appraisers) and
   ``population`` (a new appraiser from the same population);

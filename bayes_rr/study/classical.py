@@ -3,7 +3,7 @@
 Moment (plug-in) estimates of the per-part decomposition, agreement
 percentages, Fleiss' and Cohen's kappa with their standard errors, and
 intervals for the difference of two appraisers' call rates. Keys follow
-``estimands.md``; every interval states its level and method.
+`docs/statistics.md`; every interval states its level and method.
 """
 
 from __future__ import annotations
@@ -61,7 +61,7 @@ class MomentEstimates:
 
 
 def _study_summary(per_part: pd.DataFrame, single_appraiser: bool) -> tuple[dict, list[str]]:
-    """Averages over parts; the share is a ratio of averages (estimands.md).
+    """Averages over parts; the share is a ratio of averages (docs/statistics.md).
 
     With a single appraiser reproducibility is not estimable (zero by construction):
     it is left out (None), never shown as a number.
@@ -93,7 +93,7 @@ def _study_summary(per_part: pd.DataFrame, single_appraiser: bool) -> tuple[dict
 
 
 def moment_estimates(study: StudyData) -> tuple[MomentEstimates, MomentEstimates]:
-    """Plug-in and bias-corrected moment estimates (estimands.md, classical statistics).
+    """Plug-in and bias-corrected moment estimates (docs/statistics.md, classical statistics).
 
     Plug-in: p_ij replaced by q_ij = s_ij / n_ij in the study-scope formulas, so
     T_i = R_i + V_i holds exactly. Corrected: R_i = mean_j q(1-q) n/(n-1) over cells
