@@ -563,3 +563,52 @@ def test_a_criterion_on_one_appraiser(fits):
         check_available(parse_criteria(text.replace(name, "Nobody")), estimands)
     with pytest.raises(SpecError, match="about the study's parts"):
         parse_criteria(text.replace('scope = "study"', 'scope = "population"'))
+
+
+# --- planning -----------------------------------------------------------------------------------
+
+
+def test_plan_figures_carry_their_monte_carlo_errors():
+    """Bootstrap SE of a median (compared with the normal-theory value
+    1.2533 sd / sqrt(n) for normal data, common practice) and the Agresti-Coull SE of a
+    share (Agresti and Coull 1998), never 0 for a share of 0."""
+    from bayes_rr.simulation.plan import binomial_se, median_se
+
+    values = np.random.default_rng(3).normal(0.2, 0.05, 400)
+    assert median_se(values) == pytest.approx(1.2533 * 0.05 / np.sqrt(400), rel=0.25)
+    assert binomial_se(0.0, 20) == pytest.approx(np.sqrt((2 / 24) * (22 / 24) / 24))
+    assert binomial_se(0.5, 1000) == pytest.approx(np.sqrt(0.25 / 1000), rel=0.01)
+
+
+def test_criteria_out_of_reach_of_the_earlier_posterior(fits):
+    """The share of earlier draws where every criterion holds bounds the assurance; the
+    recommendation says so instead of "try larger designs"."""
+    from bayes_rr.results.decisions import parse_criteria
+    from bayes_rr.simulation.designs import Design
+    from bayes_rr.simulation.plan import PlanRequest, criteria_hold_probability, recommendation
+
+    estimands = fits["crossed-logit"].estimands
+    draws = estimands["study__study__call_rate"].to_numpy().ravel()
+    low = float(np.quantile(draws, 0.02))
+    text = (f'[[criterion]]\nkey = "call_rate"\nscope = "study"\nbelow = {low!r}\n'
+            "required_probability = 0.9\n")  # fmt: skip
+    criteria = parse_criteria(text)
+    holds = criteria_hold_probability(criteria, estimands)
+    assert holds == pytest.approx(float(np.mean(draws < low)))
+    request = PlanRequest(load_spec("crossed-logit"), (Design(20, 3, 2),), 10, 1, criteria,
+                          None, 0.8, None)  # fmt: skip
+    row = {"parts": 20, "appraisers": 3, "trials": 2, "calls": 120, "assurance": 0.1,
+           "expected_width": {}}  # fmt: skip
+    said = recommendation([row], request, "study__study__call_rate", holds)
+    assert "No design can reach" in said and f"{holds:.2f}" in said
+    assert "Try larger designs" in recommendation([row], request, "k", None)
+
+
+def test_plan_from_an_earlier_fit_takes_its_model(fit_dirs):
+    # before: the default crossed-logit was compared with the fit's model and refused
+    # with "leave out --model", which the user had done
+    from bayes_rr.api.planning import plan_request
+
+    request = plan_request(prior_from=fit_dirs["beta-binomial"], parts=20, sims=10)
+    assert request.spec.name == "beta-binomial"
+    assert plan_request(parts=20, sims=10).spec.name == "crossed-logit"

@@ -19,7 +19,7 @@ def _counts(values: int | str | Sequence[int], name: str, least: int, most: int)
 
 
 def plan_request(
-    model: str | Path = "crossed-logit",
+    model: str | Path | None = None,
     *,
     parts: int | str | Sequence[int] = (20, 40),
     appraisers: int | str | Sequence[int] = 3,
@@ -38,13 +38,19 @@ def plan_request(
 ):
     """The :class:`~bayes_rr.simulation.plan.PlanRequest` of a plan, checked (counts as
     numbers, lists or text such as ``"20,40"``; ``option_prefix`` names them in messages,
-    ``"--"`` for the command line)."""
+    ``"--"`` for the command line). ``model`` defaults to the earlier fit's model with
+    ``prior_from``, else to crossed-logit."""
     from bayes_rr.priors.spec import load_spec
     from bayes_rr.results.decisions import check_keys, load_criteria
     from bayes_rr.simulation.designs import MAX_APPRAISERS, MAX_PARTS, MAX_TRIALS, design_grid
     from bayes_rr.simulation.plan import PlanRequest
 
-    spec = load_spec(model)
+    if model is None and prior_from is not None:
+        from bayes_rr.io.fit_folder import load_fit
+
+        spec = load_fit(prior_from).spec  # the earlier fit's own model
+    else:
+        spec = load_spec("crossed-logit" if model is None else model)
     wanted = load_criteria(criteria) if criteria is not None else ()
     check_keys(wanted)
     grid = design_grid(
@@ -65,7 +71,7 @@ def plan_request(
 
 def plan(
     out: str | Path,
-    model: str | Path = "crossed-logit",
+    model: str | Path | None = None,
     *,
     workers: int | None = None,
     scheduler: str | None = None,

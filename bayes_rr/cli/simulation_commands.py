@@ -62,8 +62,13 @@ def _resumable(out_dir: Path, run, request, *, workers, scheduler, quiet: bool):
 def plan(
     out_dir: RunOut,
     model: Annotated[
-        str, Col("--model", help="Bundled model name or a spec file (default crossed-logit).")
-    ] = ("crossed-logit"),
+        str | None,
+        Col(
+            "--model",
+            help="Bundled model name or a spec file (default crossed-logit, or "
+            "the model of --prior-from).",
+        ),
+    ] = None,
     parts: Annotated[
         str, Col("--parts", help="Parts to try, e.g. 20,40,60 (default 20,40).")
     ] = "20,40",
@@ -140,23 +145,44 @@ def plan(
     table.add_column("result (scope)")
     for row in designs:
         table.add_column(f"{row['parts']}x{row['appraisers']}x{row['trials']}", justify="right")
+    from bayes_rr.core import glossary
+
     for key in keys:
         scope, _, short = key.split("__")
-        widths = [row["expected_width"].get(key) for row in designs]
-        table.add_row(f"{short.replace('_', ' ')} ({scope})",
-                      *["-" if w is None else f"{w:.3g}" for w in widths])  # fmt: skip
+        cells = [_with_se(row["expected_width"].get(key), row.get("expected_width_se", {})
+                          .get(key), percent=False) for row in designs]  # fmt: skip
+        table.add_row(f"{glossary.name(short)} ({scope})", *cells)
     if wanted:
-        table.add_row("assurance", *["-" if r["assurance"] is None else f"{r['assurance']:.0%}"
-                                     for r in designs])  # fmt: skip
+        table.add_row("assurance", *[_with_se(r["assurance"], r.get("assurance_se"),
+                                              percent=True) for r in designs])  # fmt: skip
     table.add_row("fits ok", *[f"{r['fits_converged']}/{r['sims']}" for r in designs])
     reached = [r["borderline_share_reached"] for r in designs]
     if part_mix is not None and any(share is not None for share in reached):
         table.add_row("borderline share reached",
                       *["-" if s is None else f"{s:.0%}" for s in reached])  # fmt: skip
     out.print(table)
+    out.print(
+        "each figure over its Monte Carlo standard error (the simulated studies' own "
+        "noise; more --sims shrink it)"
+    )
+    if document.get("criteria_hold_probability") is not None and target_assurance is None:
+        out.print(
+            "the earlier fit puts every criterion on its required side with posterior "
+            f"probability {document['criteria_hold_probability']:.2f} (an assurance ceiling)"
+        )
     out.print(document["recommendation"])
     _print_failures(document["failures"])
     out.print(f"plan written to {out_dir / 'plan.json'} (figure: plan_widths.png)")
+
+
+def _with_se(value: float | None, se: float | None, *, percent: bool) -> str:
+    """A plan figure over its Monte Carlo standard error."""
+    if value is None:
+        return "-"
+    if percent:
+        return f"{value:.0%}" + ("" if se is None else f"\n±{se:.0%}")
+    shown = f"{value:.3g}"
+    return shown if se is None or se != se else f"{shown}\n±{se:.1g}"
 
 
 @handles_errors

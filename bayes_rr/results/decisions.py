@@ -167,6 +167,11 @@ def check_keys(criteria: tuple[Criterion, ...]) -> None:
             )
 
 
+def criterion_draws(estimands: xr.Dataset, criterion: Criterion) -> np.ndarray:
+    """The draws ``criterion`` judges (SpecError when ``estimands`` lack them)."""
+    return _draws_of(estimands, criterion)
+
+
 def _keyed_draws(estimands: xr.Dataset, scope: str) -> dict[str, xr.DataArray]:
     """Every study- or system-level estimand of ``scope`` a criterion may name: a
     scalar by its key, one with a further dimension (the side of a limit) as

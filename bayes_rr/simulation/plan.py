@@ -169,14 +169,17 @@ def _tasks(request: PlanRequest, earlier_posterior, analysis_spec: ModelSpec):
 
 def _summarise_design(design: Design, results: list[dict], failures: int, reached) -> dict:
     converged = [r for r in results if r["converged"]]
-    widths, ranges = {}, {}
+    widths, ranges, width_se = {}, {}, {}
     for key in PLAN_KEYS:
         values = np.array([r["widths"][key] for r in converged if key in r["widths"]])
         values = values[np.isfinite(values)]
         if values.size:
             widths[key] = float(np.median(values))
             ranges[key] = [float(values.min()), float(values.max())]
+            width_se[key] = median_se(values)
     met = [r["criteria_met"] for r in results if r["criteria_met"] is not None]
+    total = len(results) + failures
+    assurance = (sum(met) / total) if met else None
     return {
         **design.as_dict(),
         "calls": design.parts * design.appraisers * design.trials,
@@ -184,17 +187,70 @@ def _summarise_design(design: Design, results: list[dict], failures: int, reache
         "fits_converged": len(converged),
         "fits_failed": failures,
         "expected_width": widths,
+        "expected_width_se": width_se,
         "width_range": ranges,
         # a failed or unconverged fit cannot show a criterion met: it counts as not met
-        "assurance": (sum(met) / (len(results) + failures)) if met else None,
+        "assurance": assurance,
+        "assurance_se": None if assurance is None else binomial_se(assurance, total),
         "borderline_share_reached": None if reached is None else float(np.median(reached)),
         "seconds_per_fit": float(np.median([r["seconds"] for r in results])) if results
         else None,
     }  # fmt: skip
 
 
-def recommendation(rows: list[dict], request: PlanRequest, key: str) -> str:
-    """The smallest design (fewest calls) that reaches the target, in one sentence."""
+BOOTSTRAP_RESAMPLES = 400
+
+
+def median_se(values: np.ndarray, seed: int = 0) -> float:
+    """Monte Carlo standard error of a median over simulated studies: the sd of the
+    medians of bootstrap resamples (fixed seed, so a plan's figures repeat)."""
+    if values.size < 2:
+        return float("nan")
+    rng = np.random.default_rng(seed)
+    picks = rng.integers(0, values.size, size=(BOOTSTRAP_RESAMPLES, values.size))
+    return float(np.median(values[picks], axis=1).std(ddof=1))
+
+
+def binomial_se(share: float, count: int) -> float:
+    """Monte Carlo standard error of a share of ``count`` simulated studies, in the
+    Agresti-Coull form (two successes and two failures added), so that a share of 0 or
+    1 from few studies does not claim an error of 0."""
+    if not count:
+        return float("nan")
+    adjusted = (share * count + 2) / (count + 4)
+    return float(np.sqrt(adjusted * (1 - adjusted) / (count + 4)))
+
+
+def criteria_hold_probability(criteria, estimands) -> float | None:
+    """The share of an earlier fit's posterior draws in which every criterion holds (its
+    quantity on the required side of the threshold). Studies simulated from that
+    posterior can show the criteria met only about as often as they hold, so this
+    bounds the assurance of every design. None when the earlier fit does not give every
+    criterion's quantity (a production criterion of a fit without production)."""
+    from bayes_rr.core.errors import SpecError
+    from bayes_rr.results.decisions import criterion_draws
+
+    if not criteria or estimands is None:
+        return None
+    holds = None
+    for criterion in criteria:
+        try:
+            draws = criterion_draws(estimands, criterion)
+        except SpecError:
+            return None
+        with np.errstate(invalid="ignore"):
+            side = draws < criterion.threshold if criterion.direction == "below" else (
+                draws > criterion.threshold)  # fmt: skip
+        holds = side if holds is None else holds & side
+    return float(np.mean(holds))
+
+
+def recommendation(
+    rows: list[dict], request: PlanRequest, key: str, holds: float | None = None
+) -> str:
+    """The smallest design (fewest calls) that reaches the target, in one sentence;
+    when the earlier fit puts the criteria out of reach (``holds``, see
+    :func:`criteria_hold_probability`), that instead of "try larger designs"."""
 
     def name(row: dict) -> str:
         return (f"{row['parts']} parts x {row['appraisers']} appraisers x {row['trials']} "
@@ -209,6 +265,13 @@ def recommendation(rows: list[dict], request: PlanRequest, key: str) -> str:
                     f"{good[0]['assurance']:.0%}.")  # fmt: skip
         best = max(rows, key=lambda r: r["assurance"] or 0)
         highest = best["assurance"] or 0
+        if holds is not None and holds < goal:
+            return (f"No design can reach an assurance of {goal:.0%}: the earlier fit puts "
+                    f"every criterion on its required side with posterior probability only "
+                    f"{holds:.2f}, and a new study shows the criteria met only about as often "
+                    f"as they hold (the highest assurance here is {highest:.0%} with "
+                    f"{name(best)}). The inspection, not the study's size, is what to "
+                    "change.")  # fmt: skip
         return (f"No design of the grid reaches an assurance of {goal:.0%}; the highest is "
                 f"{highest:.0%} with {name(best)}. Try larger designs.")  # fmt: skip
     label = result_label(key)
@@ -243,12 +306,13 @@ def run_plan(
     check_request(request)
     key = resolve_target_key(request.target_key, request.spec)
     out = Path(out)
-    earlier_posterior, analysis_spec, earlier = None, request.spec, None
+    earlier_posterior, analysis_spec, earlier, holds = None, request.spec, None, None
     if request.earlier_folder is not None:
         from bayes_rr.io.fit_folder import load_fit
         from bayes_rr.priors.earlier import prior_from_fit
 
         loaded = load_fit(request.earlier_folder)
+        holds = criteria_hold_probability(request.criteria, _estimands_group(loaded.idata))
         analysis_spec, _ = prior_from_fit(loaded, 1.0, request.spec)
         earlier_posterior = loaded.idata.posterior
         earlier = {"folder": str(request.earlier_folder), "data_sha256": loaded.run["data_sha256"]}
@@ -283,7 +347,8 @@ def run_plan(
                 "assurance": request.target_assurance,
             },
             "designs": rows,
-            "recommendation": recommendation(rows, request, key),
+            "recommendation": recommendation(rows, request, key, holds),
+            "criteria_hold_probability": holds,
             "failures": list(outcome.failures.values()),
             "resumed_tasks": outcome.resumed,
             "notes": _notes(request, analysis_spec),
@@ -292,6 +357,13 @@ def run_plan(
         write_bytes_atomic(out / FIGURE_FILE, figure)
         write_text_atomic(out / PLAN_FILE, dumps(document) + "\n")
         return document
+
+
+def _estimands_group(idata):
+    try:
+        return idata["estimands"]
+    except (KeyError, AttributeError):
+        return None
 
 
 def _notes(request: PlanRequest, spec: ModelSpec) -> list[str]:
