@@ -64,6 +64,13 @@ def default_model(study) -> tuple[str, str]:
             "the data give each part's reference status, so the reference-logit model "
             "estimates false reject and false accept rates (--model to choose another)"
         )
+    if getattr(study, "partial_status", None) is not None:
+        known = int(study.partial_status.notna().sum())
+        return "latent-class", (
+            f"the data give the reference status of {known} of {len(study.parts)} parts, so "
+            "the latent-class model uses those and infers the others' from the calls "
+            "(--model to choose another)"
+        )
     if study.reference_value is not None and study.limits != (None, None):
         return "call-curve", (
             "the data give a measured reference value per part and a limit, so the "

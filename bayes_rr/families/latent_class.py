@@ -105,8 +105,14 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             # log expit(eta) = -log(1 + e^-eta), stable for any eta
             calls = (-s * pt.softplus(-eta) - (n - s) * pt.softplus(eta)).sum(axis=-1)
             log_lik.append(pt.logsumexp(calls + log_w[:, None], axis=0))
-        mixed = pt.logaddexp(pt.log1p(-theta) + log_lik[0], pm.math.log(theta) + log_lik[1])
-        pm.Potential("calls", (np.asarray(patterns.weight) * mixed).sum())
+        accept = pt.log1p(-theta) + log_lik[0]
+        reject = pm.math.log(theta) + log_lik[1]
+        # a part whose status the reference gives takes that class's term; the others sum
+        # the class out (a partial reference: docs/statistics.md, the models)
+        unknown, known_accept, known_reject = status_masks(patterns)
+        per_pattern = (unknown * pt.logaddexp(accept, reject) + known_accept * accept
+                       + known_reject * reject)  # fmt: skip
+        pm.Potential("calls", (np.asarray(patterns.weight) * per_pattern).sum())
     return model
 
 
@@ -130,6 +136,21 @@ class Patterns:
     s: np.ndarray  # (K, J)
     weight: np.ndarray  # (K,)
     part_of: np.ndarray  # (I,)
+    status: np.ndarray | None = None
+    """(K,): the reference status of the pattern's parts where a partial reference gives
+    it (0 accept, 1 reject) and -1 where unknown; None without a partial reference."""
+
+
+UNKNOWN = -1
+
+
+def known_status(study: StudyData) -> np.ndarray | None:
+    """Each part's status from a partial reference (-1 unknown), or None."""
+    partial = getattr(study, "partial_status", None)
+    if partial is None:
+        return None
+    values = partial.reindex(list(study.parts)).to_numpy(dtype=float)
+    return np.where(np.isnan(values), UNKNOWN, values).astype(np.int64)
 
 
 def call_patterns(study: StudyData) -> Patterns:
@@ -138,11 +159,23 @@ def call_patterns(study: StudyData) -> Patterns:
     s = np.zeros_like(n)
     n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
     s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
-    rows, part_of, counts = np.unique(
-        np.concatenate([n, s], axis=1), axis=0, return_inverse=True, return_counts=True
-    )
+    status = known_status(study)
+    # parts with a known status are their own patterns' members only with that status
+    key = np.concatenate([n, s] + ([] if status is None else [status[:, None]]), axis=1)
+    rows, part_of, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
     j = n.shape[1]
-    return Patterns(rows[:, :j], rows[:, j:], counts.astype(float), part_of.ravel())
+    known = None if status is None else rows[:, 2 * j]
+    return Patterns(rows[:, :j], rows[:, j : 2 * j], counts.astype(float), part_of.ravel(), known)
+
+
+def status_masks(patterns: Patterns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """0/1 weights (K,) of the terms a pattern's log likelihood takes: the class summed
+    out (status unknown), the accept class alone, the reject class alone."""
+    k = patterns.n.shape[0]
+    if patterns.status is None:
+        return np.ones(k), np.zeros(k), np.zeros(k)
+    st = patterns.status
+    return (st == UNKNOWN).astype(float), (st == 0).astype(float), (st == 1).astype(float)
 
 
 def part_nodes(has_part: bool) -> tuple[np.ndarray, np.ndarray]:
@@ -185,13 +218,20 @@ def class_log_likelihoods(
 
 
 def latent_class_posterior(
-    log_lik: np.ndarray, prevalence: np.ndarray
+    log_lik: np.ndarray, prevalence: np.ndarray, status: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """Each pattern's probability of being a reject part (S, K), and its marginal log
-    likelihood (S, K), given the draw's parameters."""
+    likelihood (S, K), given the draw's parameters; a pattern of known ``status`` (0 or 1;
+    -1 unknown) is that class, with that class's log likelihood."""
     joint = log_lik + np.stack([np.log1p(-prevalence), np.log(prevalence)], axis=-1)[:, None]
     marginal = logsumexp(joint, axis=-1)
-    return np.exp(joint[..., 1] - marginal), marginal
+    reject = np.exp(joint[..., 1] - marginal)
+    if status is not None:
+        known = status != UNKNOWN
+        reject = np.where(known, status.astype(float), reject)
+        chosen = np.where(status == 1, joint[..., 1], joint[..., 0])
+        marginal = np.where(known, chosen, marginal)
+    return reject, marginal
 
 
 @dataclass(frozen=True)
@@ -230,7 +270,7 @@ def class_draws(posterior: xr.Dataset, study: StudyData) -> LatentClassDraws:
     ]
     log_lik = np.concatenate([p[0] for p in pieces])
     expected = np.concatenate([p[1] for p in pieces])
-    reject_prob, marginal = latent_class_posterior(log_lik, prevalence)
+    reject_prob, marginal = latent_class_posterior(log_lik, prevalence, patterns.status)
     part_of = patterns.part_of
     return LatentClassDraws(
         d,

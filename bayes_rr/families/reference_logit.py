@@ -68,6 +68,13 @@ INFO = FamilyInfo(
 
 def reference_status(study: StudyData, spec: ModelSpec):
     """The parts' reference status (0 accept, 1 reject); both must occur."""
+    partial = getattr(study, "partial_status", None)
+    if study.reference is None and partial is not None:
+        raise DataError(
+            f"{study.source}: the model {spec.name!r} needs each part's reference status; "
+            f"{int(partial.notna().sum())} of {len(study.parts)} parts have one: use "
+            "latent-class, which takes those and infers the rest (the default for such data)"
+        )
     if study.reference is None:
         raise DataError(
             f"{study.source}: the model {spec.name!r} needs each part's reference status "

@@ -210,7 +210,7 @@ def design_key(spec: ModelSpec, study) -> str:
     digest.update(repr((study.parts, study.appraisers, study.limits)).encode())
     for column in ("part_index", "appraiser_index", "n"):
         digest.update(np.ascontiguousarray(cells[column].to_numpy(dtype=np.int64)).tobytes())
-    for extra in (study.reference, study.reference_value):
+    for extra in (study.reference, study.reference_value, getattr(study, "partial_status", None)):
         digest.update(b"-" if extra is None else extra.to_numpy(dtype=float).tobytes())
     return digest.hexdigest()
 

@@ -136,11 +136,40 @@ def _decimal_commas(long: pd.DataFrame, source: str) -> tuple[pd.DataFrame, list
     return long, notes
 
 
+def _partial_reference(status: pd.Series, source: str) -> pd.Series:
+    known = status.dropna()
+    if known.nunique() < 2:
+        which = "reject" if len(known) and int(known.iloc[0]) == 1 else "accept"
+        raise DataError(
+            f"{source}: the reference column is filled in for {len(known)} of {len(status)} "
+            f"parts, all of them {which}; parts of both statuses must have one (or leave the "
+            "column out and fit latent-class)"
+        )
+    return status
+
+
+def partial_note(status: pd.Series) -> str:
+    """What a partial reference means for the fit, said where the data are read."""
+    known = int(status.notna().sum())
+    return (
+        f"reference status given for {known} of {len(status)} parts; the others' status "
+        "is unknown and inferred from the calls (latent-class). Sound when the parts given "
+        "a reference were chosen at random, or by their calls alone (e.g. every part "
+        "someone rejected plus a random share of the rest); not when chosen by anything "
+        "else the data do not hold"
+    )
+
+
 def _per_part(long: pd.DataFrame, role: str, source: str, options: ReadOptions) -> pd.Series | None:
     if long[role].isna().all():
         return None
     values = long[["part", role, "row"]]
     missing = values[role].map(is_missing)
+    if missing.any() and role == "reference":
+        # a partial reference: empty means unknown (latent-class uses the known ones)
+        known = _per_part(long[~missing.to_numpy()], role, source, options)
+        parts = list(dict.fromkeys(long["part"]))
+        return known.reindex(parts).astype(float) if known is not None else None
     if missing.any():
         raise DataError(
             f"{source}: empty {role.replace('_', ' ')} at "
@@ -266,6 +295,7 @@ def build_study(
     *,
     source: str,
     reference: pd.Series | None = None,
+    partial_status: pd.Series | None = None,
     reference_value: pd.Series | None = None,
     notes: Sequence[str] = (),
     ignored_columns: Sequence[str] = (),
@@ -306,6 +336,9 @@ def build_study(
     if reference is not None:
         reference = reference.reindex(list(parts)).astype(np.int8)
         reference.index.name = "part"
+    if partial_status is not None:
+        partial_status = partial_status.reindex(list(parts)).astype(float)
+        partial_status.index.name = "part"
     if reference_value is not None:
         reference_value = reference_value.reindex(list(parts)).astype(float)
         reference_value.index.name = "part"
@@ -318,9 +351,16 @@ def build_study(
         parts=parts,
         appraisers=appraisers,
         reference=reference,
+        partial_status=partial_status,
         reference_value=reference_value,
         source=source,
-        sha256=study_hash(calls, reference, reference_value, limits, stratum),
+        sha256=study_hash(
+            calls,
+            reference if partial_status is None else partial_status,
+            reference_value,
+            limits,
+            stratum,
+        ),
         notes=tuple(notes),
         ignored_columns=tuple(ignored_columns),
         limits=limits,
@@ -362,6 +402,10 @@ def study_from_frame(
     long, comma_notes = _decimal_commas(long, source)
     call_notes = [*call_notes, *comma_notes]
     reference = _per_part(long, "reference", source, options)
+    partial = None
+    if reference is not None and reference.isna().any():
+        partial, reference = _partial_reference(reference, source), None
+        call_notes.append(partial_note(partial))
     reference_value = _per_part(long, "reference_value", source, options)
     stratum = _per_part(long, "stratum", source, options)
     limits = _limits(long, source, options)
@@ -377,6 +421,7 @@ def study_from_frame(
         long,
         source=source,
         reference=reference,
+        partial_status=partial,
         reference_value=reference_value,
         notes=all_notes,
         ignored_columns=ignored,

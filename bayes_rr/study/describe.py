@@ -35,6 +35,9 @@ def reference_rows(design: dict) -> list[tuple[str, str]]:
     rows = []
     if design.get("reference_reject_parts") is not None:
         rows.append(("parts with reference status reject", str(design["reference_reject_parts"])))
+    known = design.get("reference_known_parts")
+    if known and not design.get("has_reference"):
+        rows.append(("reference status known", f"for {known} of {design['parts']} parts"))
     span = design.get("reference_value_range")
     if span:
         rows.append(("reference values", f"{span[0]:g} to {span[1]:g}"))

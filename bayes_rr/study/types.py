@@ -174,7 +174,10 @@ class StudyData:
     stratum: pd.Series | None = None
     """Per part, the group its part was picked from (a ``stratum`` column), or None:
     production figures can reweight the groups to their shares of production."""
-    """(lower, upper) specification limits of the reference value; None where absent."""
+    partial_status: pd.Series | None = None
+    """Per part, the reference status where the reference column gives one (1 / 0) and
+    NaN where it is empty; set only for such a partial reference (``reference`` is then
+    None). The latent class model uses the known statuses and infers the rest."""
 
     @property
     def n_calls(self) -> int:
@@ -203,6 +206,13 @@ class StudyData:
             "reject_calls": int(self.calls["call"].sum()),
             "reject_share": float(self.calls["call"].mean()),
             "has_reference": self.has_reference,
+            "reference_known_parts": (
+                int(self.partial_status.notna().sum())
+                if self.partial_status is not None
+                else len(self.parts)
+                if self.reference is not None
+                else 0
+            ),
             "reference_reject_parts": (
                 int(self.reference.sum()) if self.reference is not None else None
             ),

@@ -156,6 +156,12 @@ def ignored_options(study: StudyData, spec, production=None) -> list[str]:
             f"the reference status column is not used by the {spec.name} model: only "
             "reference-logit takes the status of each part as known"
         )
+    partial = getattr(study, "partial_status", None)
+    if partial is not None and spec.family != "latent_class":
+        out.append(
+            f"the reference statuses of {int(partial.notna().sum())} parts are not used by "
+            f"the {spec.name} model: only latent-class takes a partial reference"
+        )
     strata = production is not None and getattr(production, "strata", None) is not None
     if study.stratum is not None and not strata:
         out.append(
