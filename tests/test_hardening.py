@@ -612,3 +612,28 @@ def test_plan_from_an_earlier_fit_takes_its_model(fit_dirs):
     request = plan_request(prior_from=fit_dirs["beta-binomial"], parts=20, sims=10)
     assert request.spec.name == "beta-binomial"
     assert plan_request(parts=20, sims=10).spec.name == "crossed-logit"
+
+
+# --- study-scope rates over the parts each appraiser called ---------------------------------
+
+
+def test_study_rates_average_over_the_parts_each_appraiser_called():
+    """docs/statistics.md, wrong-call rates by scope: appraiser j's rate is the mean of
+    p_ij over the parts of that status j called; the system rate is the mean of the
+    appraisers' rates. An unbalanced design where a pooled share of calls, or an
+    average over every part, would differ (hand computation)."""
+    from bayes_rr.families.status import study_rates
+
+    # one draw, four good parts and one bad, two appraisers; Ben called parts 0 and 4 only
+    p = np.array([[[0.1, 0.5], [0.2, 0.9], [0.3, 0.9], [0.4, 0.9], [0.7, 0.6]]])
+    bad = np.array([[0.0, 0.0, 0.0, 0.0, 1.0]])
+    called = np.array([[1, 1], [1, 0], [1, 0], [1, 0], [1, 1]])
+    rates = study_rates(p, p, bad, called)
+    frr = rates["appraiser"]["false_reject_rate"][0]
+    np.testing.assert_allclose(frr, [0.25, 0.5])  # Ann: mean of 0.1..0.4; Ben: part 0 only
+    assert rates["system"]["false_reject_rate"][0] == pytest.approx(0.375)
+    # a pooled share of the called good cells would give (0.1+0.2+0.3+0.4+0.5)/5 = 0.3,
+    # and every part for Ben (0.5, 0.9, 0.9, 0.9) 0.8: both differ
+    np.testing.assert_allclose(rates["appraiser"]["false_accept_rate"][0], [0.3, 0.4])
+    agree = rates["appraiser"]["reference_agreement"][0]
+    np.testing.assert_allclose(agree, [(0.9 + 0.8 + 0.7 + 0.6 + 0.7) / 5, (0.5 + 0.6) / 2])

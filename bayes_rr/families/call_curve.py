@@ -37,7 +37,7 @@ from bayes_rr.families.curves import (
     production_nodes,
 )
 from bayes_rr.families.layout import coords, curve_design
-from bayes_rr.families.status import study_rates
+from bayes_rr.families.status import called_mask, study_rates
 from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
 
 if TYPE_CHECKING:
@@ -199,16 +199,16 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDra
         ("population", "system", "limit_spread"): (scale * spread, None),
         ("population", "system", "transition_width"): (scale * np.exp(log_width), None),
     }
-    extra.update(_study_wrong_calls(p, design["x"], limits, signs))
+    extra.update(_study_wrong_calls(p, design["x"], limits, signs, called_mask(study)))
     return LatentDraws(p, {}, log_lik, extra)
 
 
-def _study_wrong_calls(p, x, limits, signs) -> dict:
+def _study_wrong_calls(p, x, limits, signs, called=None) -> dict:
     """Study-scope false reject / false accept rates of the study's parts, whose status
     the measured value and the limit give (docs/statistics.md, scopes); a rate whose
     status no study part has is left out."""
     bad = known_status(x, limits, signs)
-    rates = study_rates(p, p, np.broadcast_to(bad, p.shape[:2]))
+    rates = study_rates(p, p, np.broadcast_to(bad, p.shape[:2]), called)
     keep = {"reference_agreement"}
     if (bad == 0).any():
         keep.add("false_reject_rate")

@@ -26,6 +26,7 @@ from bayes_rr.families.status import (
     PER_STATUS_SCALES,
     STATEMENTS,
     StatusDraws,
+    called_mask,
     population_rates,
     production_calls,
     rate_variables,
@@ -288,7 +289,7 @@ def rates(posterior: xr.Dataset, study: StudyData) -> tuple[dict, np.ndarray]:
     lc = class_draws(posterior, study)
     d = lc.params
     rates = {
-        "study": study_rates(lc.p_if[0], lc.p_if[1], lc.reject_weight),
+        "study": study_rates(lc.p_if[0], lc.p_if[1], lc.reject_weight, called_mask(study)),
         "population": population_rates(
             d.intercept,
             d.appraiser_effect,

@@ -35,6 +35,7 @@ from bayes_rr.families.status import (
     PER_STATUS_SCALES,
     STATEMENTS,
     StatusDraws,
+    called_mask,
     population_rates,
     production_calls,
     rate_variables,
@@ -158,7 +159,7 @@ def rates(p: np.ndarray, d: StatusDraws, study: StudyData) -> dict:
     status = study.reference.to_numpy().astype(float)
     weight = np.broadcast_to(status, p.shape[:2])
     return {
-        "study": study_rates(p, p, weight),
+        "study": study_rates(p, p, weight, called_mask(study)),
         "population": population_rates(
             d.intercept,
             d.appraiser_effect,

@@ -48,22 +48,38 @@ PER_STATUS_SCALES = ("sigma_appraiser",)
 """Variables with one prior for both statuses but a value per status."""
 
 
+def called_mask(study) -> np.ndarray:
+    """(part, appraiser): whether the appraiser called the part at least once."""
+    mask = np.zeros((len(study.parts), len(study.appraisers)))
+    cells = study.cells
+    mask[cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()] = 1.0
+    return mask
+
+
 def study_rates(
-    p_if_accept: np.ndarray, p_if_reject: np.ndarray, reject_weight: np.ndarray
+    p_if_accept: np.ndarray,
+    p_if_reject: np.ndarray,
+    reject_weight: np.ndarray,
+    called: np.ndarray | None = None,
 ) -> dict[str, dict[str, np.ndarray]]:
     """Study-scope rates per appraiser and for the system.
 
     ``p_if_accept``/``p_if_reject`` (S, part, appraiser): the call probability of each
     part were it of that status; ``reject_weight`` (S, part): the part's probability
-    of being a reject part in the draw (0/1 with a known reference). Returns
+    of being a reject part in the draw (0/1 with a known reference); ``called`` (part,
+    appraiser): which parts each appraiser called (an appraiser's rate averages over
+    those only, docs/statistics.md, wrong-call rates by scope; default: all). The
+    system rate is the mean of the appraisers' rates. Returns
     ``{"appraiser": {key: (S, appraiser)}, "system": {key: (S,)}}``.
     """
-    w1 = reject_weight[:, :, None]
-    w0 = 1.0 - w1
+    mask = 1.0 if called is None else np.asarray(called, dtype=float)[None]
+    w1 = reject_weight[:, :, None] * mask
+    w0 = (1.0 - reject_weight[:, :, None]) * mask
     with np.errstate(invalid="ignore", divide="ignore"):
         frr = (w0 * p_if_accept).sum(axis=1) / w0.sum(axis=1)
         far = (w1 * (1.0 - p_if_reject)).sum(axis=1) / w1.sum(axis=1)
-    agree = (w0 * (1.0 - p_if_accept) + w1 * p_if_reject).mean(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        agree = (w0 * (1.0 - p_if_accept) + w1 * p_if_reject).sum(axis=1) / (w0 + w1).sum(axis=1)
     per_appraiser = {"false_reject_rate": frr, "false_accept_rate": far,
                      "reference_agreement": agree}  # fmt: skip
     return {

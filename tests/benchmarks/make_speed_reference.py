@@ -2,8 +2,12 @@
 
 Not collected by pytest. Run with the code of the commit to record, e.g.
 
-    git worktree add /tmp/old cf519db
+    git worktree add /tmp/old COMMIT
     PYTHONPATH=/tmp/old python tests/benchmarks/make_speed_reference.py OUT.json
+
+First recorded at cf519db (before the speed work); recorded again when the study-scope
+wrong-call rates came to average over the parts each appraiser called (the study has
+empty cells, so those rows moved by definition, not by Monte Carlo error).
 
 The study and settings are those of tests/conftest.py (small_sim, FAST).
 """
@@ -12,9 +16,8 @@ import json
 import sys
 import warnings
 
-from bayes_rr.core.distributions.spec import load_spec
-
 from bayes_rr.inference.sampling import SamplerSettings
+from bayes_rr.priors.spec import load_spec
 from bayes_rr.simulation.known_truth import simulate_crossed_logit
 from bayes_rr.workflow.fit import fit_study
 
