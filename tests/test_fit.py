@@ -219,7 +219,8 @@ def test_summaries_match_those_before_the_speed_work(small_sim, fits):
     seeded fits made with the code before it (tests/data/summaries_before_speedups.json,
     commit cf519db), recorded again when the study-scope wrong-call rates came to average
     over the parts each appraiser called (only appraiser A3's false reject rate moved
-    beyond Monte Carlo error then, 0.359 to 0.372: A3 has empty cells). On the machine that made it the draws are the same and the rows
+    beyond Monte Carlo error then, 0.359 to 0.372: A3 has empty cells). On the machine
+    that made it the draws are the same and the rows
     agree to about 1e-12; elsewhere the sampler's rounding may differ, so the bounds
     are Monte Carlo errors: 5 standard errors of a mean (sd / sqrt(ESS)) and of a 2.5%
     or 97.5% quantile (about 2.7 sd / sqrt(ESS)), both fits' errors combined; ESS within

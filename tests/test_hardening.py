@@ -637,3 +637,33 @@ def test_study_rates_average_over_the_parts_each_appraiser_called():
     np.testing.assert_allclose(rates["appraiser"]["false_accept_rate"][0], [0.3, 0.4])
     agree = rates["appraiser"]["reference_agreement"][0]
     np.testing.assert_allclose(agree, [(0.9 + 0.8 + 0.7 + 0.6 + 0.7) / 5, (0.5 + 0.6) / 2])
+
+
+# --- power-scaling sees every stated prior ---------------------------------------------------
+
+
+def test_power_scaling_includes_the_lkj_prior_and_names_flat_ones(small_sim):
+    """The correlation of an appraiser's two effects enters the scaled log prior as its
+    LKJ(2) density, (rho + 1) / 2 ~ Beta(2, 2) (scipy.stats.beta); a flat prior, which
+    power-scaling cannot see, is named with the reason."""
+    from scipy import stats
+
+    from bayes_rr.priors.hyperpriors import flat_priors, log_prior
+    from bayes_rr.priors.prior_draws import draw_prior
+    from bayes_rr.priors.sensitivity import sentences
+
+    spec = load_spec("reference-logit")
+    study = small_sim.study
+    if study.reference is None:
+        pytest.skip("the shared simulated study has no reference")
+    draws = draw_prior(spec, study, 50, seed=1)
+    assert "appraiser_correlation" in draws
+    rho = draws["appraiser_correlation"].to_numpy()
+    added = log_prior(draws, spec) - log_prior(draws.drop_vars("appraiser_correlation"), spec)
+    np.testing.assert_allclose(added, stats.beta.logpdf((rho + 1) / 2, 2, 2))
+    assert flat_priors(spec) == []
+    lc = load_spec("latent-class")
+    assert flat_priors(lc) == ["prevalence (beta(alpha=1, beta=1))"]
+    block = {"threshold": 0.05, "rows": [{"key": "call_rate", "scope": "study",
+             "verdict": "data"}], "blind_note": "Power-scaling cannot see ..."}  # fmt: skip
+    assert sentences(block)[-1].startswith("Power-scaling cannot see")

@@ -95,16 +95,45 @@ def log_density(prior: Prior, values: np.ndarray) -> np.ndarray:
     return prior.scipy().logpdf(values)
 
 
+def _correlation_log_prior(posterior) -> np.ndarray | None:
+    from bayes_rr.families.layout import APPRAISER_CORRELATION_ETA
+
+    rho = draws_of(posterior, "appraiser_correlation")
+    if rho is None:
+        return None
+    eta = APPRAISER_CORRELATION_ETA
+    return stats.beta.logpdf((np.clip(rho, -1, 1) + 1) / 2, eta, eta)
+
+
+FLAT = {"beta": {"alpha": 1.0, "beta": 1.0}}
+"""Stated priors whose density is constant: raising them to a power changes nothing, so
+power-scaling cannot see their influence."""
+
+
+def flat_priors(spec: ModelSpec) -> list[str]:
+    """The hyper-parameters whose stated prior is flat (power-scaling is blind to them)."""
+    out = []
+    for hyper in hyper_parameters(spec):
+        params = dict(hyper.prior.params)
+        flat = FLAT.get(hyper.prior.distribution)
+        if hyper.prior.distribution == "uniform" or (
+            flat is not None and all(params.get(k) == v for k, v in flat.items())
+        ):
+            out.append(f"{hyper.label} ({hyper.prior.text()})")
+    return sorted(set(out))
+
+
 def log_prior(posterior, spec: ModelSpec, *, earlier: bool = True) -> np.ndarray:
     """(chain, draw) log density of every stated hyper-prior at the posterior draws,
     including the earlier-study factors of the spec when ``earlier``.
 
-    Group effects given their scales and the fixed LKJ(2) correlation of status
-    families are not stated priors and are left out: power-scaling the top-level
-    priors of a hierarchical model is the recommended use (Kallioinen et al. 2023,
-    section 5).
+    The LKJ prior on the correlation of an appraiser's effects on good and bad parts
+    (status families) is included: for two effects it is (rho + 1) / 2 ~ Beta(eta,
+    eta). Group effects given their scales are not stated priors and are left out:
+    power-scaling the top-level priors of a hierarchical model is the recommended use
+    (Kallioinen et al. 2023, section 5).
     """
-    total = None
+    total = _correlation_log_prior(posterior)
     for hyper in hyper_parameters(spec):
         values = draws_of(posterior, hyper.variable, hyper.status)
         if values is None:

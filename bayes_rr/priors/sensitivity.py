@@ -26,7 +26,7 @@ import numpy as np
 import xarray as xr
 
 from bayes_rr.core import glossary
-from bayes_rr.priors.hyperpriors import log_prior
+from bayes_rr.priors.hyperpriors import flat_priors, log_prior
 from bayes_rr.priors.spec import ModelSpec
 
 THRESHOLD = 0.05
@@ -102,13 +102,38 @@ def prior_sensitivity(
         f"alpha = 1 +- {DELTA} by importance weighting; cumulative Jensen-Shannon "
         "distance per unit log alpha (Kallioinen et al. 2023; arviz.psens)",
         "threshold": threshold,
-        "scaled_priors": "stated hyper-priors and any earlier-study factors; group effects "
+        "scaled_priors": "stated hyper-priors, the LKJ prior on the correlation of an "
+        "appraiser's effects (status models) and any earlier-study factors; group effects "
         "given their scales are not stated priors and are not scaled",
+        "likelihood": SCALED_LIKELIHOOD.get(spec.family, "the cell likelihood"),
+        "blind_to": flat_priors(spec),
+        "blind_note": (
+            "Power-scaling cannot see the influence of a flat prior (a constant density "
+            f"raised to a power is unchanged): {', '.join(flat_priors(spec))}. Judge "
+            "those by the interval's width against the prior's range instead."
+            if flat_priors(spec)
+            else None
+        ),
         "rows": rows,
         "prior_sensitive": [label(r) for r in rows if r["verdict"] != "data"],
         "data_driven": [label(r) for r in rows if r["verdict"] == "data"],
     }
 
+
+SCALED_LIKELIHOOD = {
+    "logit": "the cell likelihood with the appraiser-by-part effect integrated "
+    "out by quadrature (those effects are sampled, but the likelihood scaled is the "
+    "marginal one)",
+    "reference_logit": "the cell likelihood with the appraiser-by-part effect integrated "
+    "out by quadrature (those effects are sampled, but the likelihood scaled is the "
+    "marginal one)",
+    "beta_binomial": "the beta-binomial cell likelihood (each cell's call probability "
+    "integrated out)",
+    "latent_class": "each part's likelihood with its class summed out and its part "
+    "effect integrated out",
+    "call_curve": "the binomial cell likelihood",
+}
+"""Which likelihood power-scaling raises to a power, per family (said in the report)."""
 
 HEADLINE_KEYS = (
     "call_rate",
@@ -154,4 +179,6 @@ def sentences(block: dict, earlier: bool = False, keys: tuple[str, ...] | None =
         f"{data} of {len(rows)} {which} results are driven by the data "
         f"(prior sensitivity below {block['threshold']:g})."
     )
+    if block.get("blind_note"):
+        out.append(block["blind_note"])
     return out

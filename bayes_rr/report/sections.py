@@ -203,7 +203,13 @@ def sensitivity_appendix(inputs: ReportInputs) -> str:
         for r in block["rows"]
     ]
     header = ["result", "scope", "prior sensitivity", "likelihood sensitivity", "reading"]
-    return html_table(header, rows, {2, 3})
+    said = [f"Priors scaled: {block.get('scaled_priors', '')}."]
+    if block.get("likelihood"):
+        said.append(f"Likelihood scaled: {block['likelihood']}.")
+    if block.get("blind_note"):
+        said.append(block["blind_note"])
+    notes = "".join(f"<p class='note'>{esc(text)}</p>" for text in said)
+    return notes + html_table(header, rows, {2, 3})
 
 
 def convergence_section(inputs: ReportInputs) -> str:
