@@ -667,3 +667,43 @@ def test_power_scaling_includes_the_lkj_prior_and_names_flat_ones(small_sim):
     block = {"threshold": 0.05, "rows": [{"key": "call_rate", "scope": "study",
              "verdict": "data"}], "blind_note": "Power-scaling cannot see ..."}  # fmt: skip
     assert sentences(block)[-1].startswith("Power-scaling cannot see")
+
+
+# --- calls that depend on each other beyond two classes ----------------------------------
+
+
+def test_parts_mixed_for_everyone_is_counted_and_read(tmp_path):
+    """The statistic by hand on a small study, and the sentence a latent class fit gets
+    when the observed count lies above what the model replicates (and only then)."""
+    from bayes_rr.checks.predictive import (
+        DEPENDENCE_STATISTIC,
+        CheckResult,
+        CheckStatistic,
+        dependence_sentence,
+        study_statistics,
+    )
+    from bayes_rr.study.data import read_study
+
+    rows = ["part,appraiser,trial,call"]
+    calls = {  # part: (Ann's two calls, Ben's two calls)
+        "P1": ("10", "01"),  # both mixed: counted
+        "P2": ("10", "11"),  # Ben consistent: not counted
+        "P3": ("00", "00"),
+        "P4": ("01", "10"),  # both mixed: counted
+    }
+    for part, (ann, ben) in calls.items():
+        for name, pair in (("Ann", ann), ("Ben", ben)):
+            rows += [f"{part},{name},{t + 1},{'fail' if c == '1' else 'pass'}"
+                     for t, c in enumerate(pair)]  # fmt: skip
+    study = read_study(write(tmp_path, "s.csv", "\n".join(rows) + "\n"))
+    found = study_statistics(study.cells["s"].to_numpy()[None, :], study)
+    assert found[DEPENDENCE_STATISTIC][3][0] == 2
+
+    def result(p_value: float) -> CheckResult:
+        stat = CheckStatistic(DEPENDENCE_STATISTIC, "dependence", "", None, 6.0,
+                              np.zeros(10), p_value, p_value < 0.025)  # fmt: skip
+        return CheckResult("m", 10, 0, (stat,))
+
+    assert "beyond two classes" in dependence_sentence(result(0.001), "latent_class")
+    assert dependence_sentence(result(0.4), "latent_class") is None
+    assert dependence_sentence(result(0.001), "reference_logit") is None

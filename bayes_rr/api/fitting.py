@@ -136,7 +136,11 @@ class Fit:
     def check(self, draws: int = 500, seed: int = 0) -> dict:
         """Posterior and prior predictive checks (what ``bayes-rr check`` computes); writes
         nothing."""
-        from bayes_rr.checks.predictive import posterior_predictive_check, prior_predictive
+        from bayes_rr.checks.predictive import (
+            dependence_sentence,
+            posterior_predictive_check,
+            prior_predictive,
+        )
 
         ppc = posterior_predictive_check(
             self.posterior.posterior, self.spec, self.study, draws=draws, seed=seed
@@ -144,6 +148,7 @@ class Fit:
         return {
             "posterior_predictive": ppc.as_dict(),
             "prior_predictive": prior_predictive(self.spec, self.study, draws=draws, seed=seed),
+            "dependence": dependence_sentence(ppc, self.spec.family),
             "converged": self.converged,
         }
 

@@ -126,8 +126,32 @@ class CheckResult:
         }
 
 
+def dependence_sentence(result: CheckResult, family: str) -> str | None:
+    """For a latent class fit whose calls depend on each other beyond the two classes
+    (more parts called both ways by every appraiser than the model replicates), the
+    sentence that says what that means; None otherwise."""
+    if family != "latent_class":
+        return None
+    found = next((st for st in result.statistics if st.name == DEPENDENCE_STATISTIC), None)
+    if found is None or not found.p_value < FLAG_LOW:
+        return None
+    return (
+        f"{found.observed:.0f} parts were called both ways by every appraiser who called "
+        f"them twice or more, more than the latent class model replicates (mid-p "
+        f"{found.p_value:.3f}): the calls depend on each other beyond two classes, as when "
+        "the judged property is continuous (a length, a diameter) and borderline parts "
+        "draw mixed calls from everyone. The latent class false reject and false accept "
+        "rates may then be biased; with a measured value per part use call-curve, and read "
+        "these rates as a rough guide (compare models with 'bayes-rr compare')"
+    )
+
+
 # ---------------------------------------------------------------------------
 # statistics of a study, vectorised over replicated studies
+
+
+DEPENDENCE_STATISTIC = "parts_mixed_for_everyone"
+"""The statistic that shows calls depending on each other beyond two classes."""
 
 
 def study_statistics(
@@ -166,6 +190,21 @@ def study_statistics(
             "parts on which all calls of all appraisers agree",
             None,
             agree[:, multi].sum(axis=1).astype(float),
+        )
+    repeated = n >= 2
+    eligible = np.bincount(part, weights=repeated.astype(float), minlength=n_parts)
+    if (eligible >= 2).any():
+        # borderline parts of a continuous property draw mixed calls from everyone;
+        # two classes with calls independent given the class make that rare
+        mixed = ((s > 0) & (s < n) & repeated).astype(float)
+        mixed_per_part = np.zeros((s.shape[0], n_parts))
+        np.add.at(mixed_per_part.T, part, mixed.T)
+        every = (mixed_per_part == eligible) & (eligible >= 2)
+        out[DEPENDENCE_STATISTIC] = (
+            "dependence",
+            "parts on which every appraiser who called them twice or more called them both ways",
+            None,
+            every.sum(axis=1).astype(float),
         )
     for k in range(int(per_part_n.max()) + 1):
         out[f"parts_with_{k}_rejects"] = (

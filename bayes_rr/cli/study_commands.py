@@ -119,10 +119,26 @@ def models() -> None:
         spec = load_spec(name)
         table.add_row(name, spec.description, spec.suits)
     out.print(table)
-    out.print(
-        "Without --model, fit uses reference-logit when the data give each part's "
-        "reference status, and crossed-logit otherwise."
-    )
+    for line in MODEL_CHOICE:
+        out.print(line)
+
+
+MODEL_CHOICE = (
+    "Which model, in two questions:",
+    "1. Is there a reference? For every part: reference-logit. For some parts: "
+    "latent-class, which takes those and infers the rest. None: latent-class for false "
+    "reject and false accept rates, or crossed-logit (beta-binomial) for repeatability and "
+    "reproducibility alone.",
+    "2. Is the judged property measured on a scale (a diameter, a length) or truly "
+    "two-valued (a part present or missing)? With a measured value per part and a limit: "
+    "call-curve. Without one, a property on a scale makes borderline parts draw mixed "
+    "calls from everyone, which latent-class does not expect: 'bayes-rr check' says so "
+    "when it sees it.",
+    "Without --model, fit takes reference-logit for a full reference, latent-class for a "
+    "partial one, call-curve for a measured value and a limit, and crossed-logit "
+    "otherwise, and says which.",
+)
+"""How ``bayes-rr models`` explains the choice (the trade's two questions)."""
 
 
 @handles_errors

@@ -455,6 +455,8 @@ def print_checks(document: dict) -> None:
         out.print(before)
     flagged = ppc["flagged"]
     out.print(ppc["verdict"][0].upper() + ppc["verdict"][1:] + ".")
+    if document.get("dependence"):
+        out.print(f"latent classes: {document['dependence']}.")
     if flagged:
         words = {stat["name"]: stat.get("description") or stat["name"]
                  for stat in ppc["statistics"]}  # fmt: skip

@@ -67,6 +67,8 @@ def answer_box(inputs: ReportInputs) -> str:
                      "not universal limits.")  # fmt: skip
     if inputs.checks is not None:
         items.append(f"Model check: {inputs.checks['posterior_predictive']['verdict']}.")
+        if inputs.checks.get("dependence"):
+            items.append(f"{inputs.checks['dependence']}.")
     else:
         items.append("The model checks were not run ('bayes-rr check').")
     diag = summary["diagnostics"]

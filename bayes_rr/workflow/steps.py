@@ -14,6 +14,7 @@ import numpy as np
 from bayes_rr.checks.predictive import (
     DEFAULT_CHECK_DRAWS,
     compare_fits,
+    dependence_sentence,
     posterior_predictive_check,
     prior_predictive,
     thin,
@@ -58,6 +59,7 @@ def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int
     document = {
         "posterior_predictive": ppc.as_dict(),
         "prior_predictive": prior,
+        "dependence": dependence_sentence(ppc, fit.spec.family),
         "converged": fit.summary["diagnostics"]["ok"],
     }
     write_text_atomic(Path(folder) / CHECKS_FILE, dumps(document) + "\n")
