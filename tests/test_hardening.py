@@ -704,6 +704,7 @@ def test_parts_mixed_for_everyone_is_counted_and_read(tmp_path):
                               np.zeros(10), p_value, p_value < 0.025)  # fmt: skip
         return CheckResult("m", 10, 0, (stat,))
 
-    assert "beyond two classes" in dependence_sentence(result(0.001), "latent_class")
-    assert dependence_sentence(result(0.4), "latent_class") is None
-    assert dependence_sentence(result(0.001), "reference_logit") is None
+    latent, reference = load_spec("latent-class"), load_spec("reference-logit")
+    assert "beyond two classes" in dependence_sentence(result(0.001), latent)
+    assert dependence_sentence(result(0.4), latent) is None
+    assert dependence_sentence(result(0.001), reference) is None

@@ -148,7 +148,7 @@ class Fit:
         return {
             "posterior_predictive": ppc.as_dict(),
             "prior_predictive": prior_predictive(self.spec, self.study, draws=draws, seed=seed),
-            "dependence": dependence_sentence(ppc, self.spec.family),
+            "dependence": dependence_sentence(ppc, self.spec),
             "converged": self.converged,
         }
 

@@ -126,11 +126,13 @@ class CheckResult:
         }
 
 
-def dependence_sentence(result: CheckResult, family: str) -> str | None:
+def dependence_sentence(result: CheckResult, spec: ModelSpec) -> str | None:
     """For a latent class fit whose calls depend on each other beyond the two classes
     (more parts called both ways by every appraiser than the model replicates), the
     sentence that says what that means; None otherwise."""
-    if family != "latent_class":
+    from bayes_rr.families import family_of
+
+    if not family_of(spec).dependence_check:
         return None
     found = next((st for st in result.statistics if st.name == DEPENDENCE_STATISTIC), None)
     if found is None or not found.p_value < FLAG_LOW:

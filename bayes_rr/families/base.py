@@ -122,6 +122,12 @@ class Family:
     (appraisers identified across parts)."""
     statements: tuple[str, ...] = ()
     """The statement kinds of ``bayes-rr prior`` that this family takes."""
+    partial_reference: bool = False
+    """Whether the family takes a reference given for some parts only (the others'
+    status inferred)."""
+    dependence_check: bool = False
+    """Whether the predictive check's count of parts called both ways by everyone speaks
+    against the family's assumption (calls independent given a part's class)."""
     simulated: bool = False
     """Whether studies can be simulated from the model (plan, calibrate)."""
     simulated_with_reference: bool = False

@@ -405,4 +405,6 @@ FAMILY = Family(
     identification_note=IDENTIFICATION_NOTE,
     weak_identification=weak_identification,
     production_calls=production_calls,
+    partial_reference=True,
+    dependence_check=True,
 )

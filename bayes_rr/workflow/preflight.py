@@ -157,7 +157,7 @@ def ignored_options(study: StudyData, spec, production=None) -> list[str]:
             "reference-logit takes the status of each part as known"
         )
     partial = getattr(study, "partial_status", None)
-    if partial is not None and spec.family != "latent_class":
+    if partial is not None and not family_of(spec).partial_reference:
         out.append(
             f"the reference statuses of {int(partial.notna().sum())} parts are not used by "
             f"the {spec.name} model: only latent-class takes a partial reference"

@@ -59,7 +59,7 @@ def check_fit(folder: str | Path, *, draws: int = DEFAULT_CHECK_DRAWS, seed: int
     document = {
         "posterior_predictive": ppc.as_dict(),
         "prior_predictive": prior,
-        "dependence": dependence_sentence(ppc, fit.spec.family),
+        "dependence": dependence_sentence(ppc, fit.spec),
         "converged": fit.summary["diagnostics"]["ok"],
     }
     write_text_atomic(Path(folder) / CHECKS_FILE, dumps(document) + "\n")
