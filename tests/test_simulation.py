@@ -8,15 +8,18 @@ correct fit are uniform.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import shutil
 from pathlib import Path
+from unittest import mock
 
 import numpy as np
 import pytest
 from scipy import stats
 
 from bayes_rr.core.errors import OutputError, SpecError
+from bayes_rr.families import FAMILIES, family_of
 from bayes_rr.priors.spec import load_spec, parse_spec
 from bayes_rr.simulation.designs import (
     Design,
@@ -104,9 +107,13 @@ def test_simulated_studies_follow_the_design():
 def test_unsupported_model_is_refused():
     from bayes_rr.simulation.designs import check_simulated
 
-    with pytest.raises(SpecError, match="latent-class"):
-        check_simulated(load_spec("latent-class"), None)
-    with pytest.raises(SpecError, match="both statuses"):
+    custom = dataclasses.replace(family_of(load_spec("beta-binomial")), simulated=False)
+    with (
+        mock.patch.dict(FAMILIES, {"beta_binomial": custom}),
+        pytest.raises(SpecError, match="can be simulated for the families"),
+    ):
+        check_simulated(load_spec("beta-binomial"), None)
+    with pytest.raises(SpecError, match="both reference statuses"):
         check_simulated(load_spec("reference-logit"), 1.0)
 
 
@@ -250,11 +257,12 @@ def test_batch_reports_a_malformed_file_and_fits_the_rest(client, tmp_path):
     ("args", "message"),
     [
         (["plan", "--parts", "20,x"], "'x' is not a whole number"),
-        (["plan", "--model", "latent-class"], "can be simulated for the families"),
+        (["plan", "--model", "latent-class", "--part-mix", "1"], "parts of both classes"),
         (["plan", "--target-assurance", "0.8"], "--target-assurance needs --criteria"),
         (["plan", "--target-key", "nonsense", "--target-width", "0.1"], "--target-key"),
         (["plan", "--sims", "1"], "--sims 1"),
         (["calibrate", "--model", "crossed-logit", "--part-mix", "0.3"], "--part-mix"),
+        (["calibrate", "--model", "latent-class", "--part-mix", "0.3"], "share of reject parts"),
         (["calibrate", "--sims", "5"], "--sims 5"),
         (["plan", "--scheduler", "tcp://127.0.0.1:9", "--sims", "2", "--parts", "5"],
          "no Dask scheduler answered"),

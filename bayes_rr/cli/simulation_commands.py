@@ -80,9 +80,10 @@ def plan(
         float | None,
         Col(
             "--part-mix",
-            help="reference-logit: share of parts whose status is reject (default 0.5); other "
-            "models: share of borderline parts, rejected 10-90% of the time (default: as the "
-            "prior gives them).",
+            help="reference-logit: share of parts whose status is reject (default 0.5); "
+            "latent-class: share of reject parts (default: drawn); call-curve: share of "
+            "values beyond the limit (default 0.5); other models: share of borderline "
+            "parts, rejected 10-90% of the time (default: as the prior gives them).",
         ),
     ] = None,
     sims: Annotated[int, Col("--sims", help="Simulated studies per design (default 50).")] = 50,
@@ -196,7 +197,11 @@ def calibrate(
     trials: Annotated[int, Col("--trials", min=1, max=20, help="Trials.")] = 2,
     part_mix: Annotated[
         float | None,
-        Col("--part-mix", help="Share of reference-reject parts (reference-logit only)."),
+        Col(
+            "--part-mix",
+            help="reference-logit: share of reference-reject parts; call-curve: share of "
+            "values beyond the limit (other models draw their parts from the prior).",
+        ),
     ] = None,
     sims: Annotated[int, Col("--sims", help="Simulated studies (at least 10).")] = 100,
     seed: Seed = 1,

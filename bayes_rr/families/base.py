@@ -130,8 +130,17 @@ class Family:
     against the family's assumption (calls independent given a part's class)."""
     simulated: bool = False
     """Whether studies can be simulated from the model (plan, calibrate)."""
-    simulated_with_reference: bool = False
-    """Whether simulated studies carry a reference status per part."""
+    simulated_parts: str = "drawn"
+    """What a simulated study's parts are and what ``--part-mix`` sets: ``drawn`` (from
+    the prior's population; the mix picks borderline parts from a pool), ``reference``
+    (a reference status per part; the mix is the share of reject parts), ``class`` (a
+    hidden status per part; the mix, when given, fixes the share of reject parts) or
+    ``values`` (a measured value per part and a limit; the mix is the share of parts
+    beyond the limit)."""
+    simulate_calls: Callable[..., tuple[xr.Dataset, np.ndarray]] | None = None
+    """``(spec, layout, truth, rng, reject_share)`` -> (truth completed with the study's
+    own effects, reject counts (sims, cells)), for a family whose calls are not an
+    observed variable of its PyMC model; None: PyMC draws the calls forward."""
     default_plan_target: str = "study__study__reproducibility_variance"
     production_calls: Callable[..., CallNodes] | None = None
     """``(posterior, spec, study, mix)`` -> :class:`CallNodes`: the family's calls on

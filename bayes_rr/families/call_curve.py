@@ -278,4 +278,7 @@ FAMILY = Family(
     appraiser_rows=True,
     production_calls=production_calls,
     guard_band_scale=guard_scale,
+    simulated=True,
+    simulated_parts="values",
+    default_plan_target="study__system__false_accept_rate",
 )

@@ -82,14 +82,25 @@ def appraiser_by_status(spec: ModelSpec, study: StudyData, rng, draws: int) -> d
     term = spec.term("appraiser")
     if term is None:
         return {}
-    n_app = len(study.appraisers)
     scales = draw(term.prior, rng, (draws, 2))
     rho = 2.0 * rng.beta(APPRAISER_CORRELATION_ETA, APPRAISER_CORRELATION_ETA, draws) - 1.0
-    z = rng.standard_normal((draws, n_app, 2))
-    accept = scales[:, :1] * z[:, :, 0]
-    reject = scales[:, 1:] * (rho[:, None] * z[:, :, 0] + np.sqrt(1 - rho**2)[:, None] * z[:, :, 1])
     return {
         "sigma_appraiser": (("status",), scales),
         "appraiser_correlation": ((), rho),
-        "appraiser_effect": (("appraiser", "status"), np.stack([accept, reject], axis=2)),
+        "appraiser_effect": (
+            ("appraiser", "status"),
+            correlated_appraiser_effects(scales, rho, len(study.appraisers), rng),
+        ),
     }
+
+
+def correlated_appraiser_effects(
+    scales: np.ndarray, rho: np.ndarray, appraisers: int, rng: np.random.Generator
+) -> np.ndarray:
+    """(draws, appraiser, status) effects of new appraisers given each draw's two scales
+    (draws, 2) and correlation (draws,), as ``pymc_parts.appraiser_by_status`` builds
+    them."""
+    z = rng.standard_normal((scales.shape[0], appraisers, 2))
+    accept = scales[:, :1] * z[:, :, 0]
+    reject = scales[:, 1:] * (rho[:, None] * z[:, :, 0] + np.sqrt(1 - rho**2)[:, None] * z[:, :, 1])
+    return np.stack([accept, reject], axis=2)

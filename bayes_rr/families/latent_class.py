@@ -22,6 +22,7 @@ from scipy.special import expit, gammaln, log_expit, logsumexp
 from bayes_rr.core.errors import DataError
 from bayes_rr.families import forward
 from bayes_rr.families.base import Family, LatentDraws, cell_index, draws_of
+from bayes_rr.families.layout import reference_statuses
 from bayes_rr.families.status import (
     PER_STATUS_SCALES,
     STATEMENTS,
@@ -373,6 +374,53 @@ def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np
     return p[:, part, app]
 
 
+def simulate_calls(
+    spec: ModelSpec,
+    layout: StudyData,
+    truth: xr.Dataset,
+    rng: np.random.Generator,
+    reject_share: float | None = None,
+) -> tuple[xr.Dataset, np.ndarray]:
+    """Studies drawn from the model: each part's class (Bernoulli(prevalence), or a fixed
+    ``reject_share`` of reject parts), its effect a ~ N(0, sigma_part), then the calls.
+
+    ``truth`` holds one draw per study (chain 1) of the hyper-parameters, with or without
+    the appraisers' effects: without them (an earlier fit's hyper-parameters, new
+    appraisers), they are drawn here from the population the draw describes. Returns the
+    truth with the appraisers' effects and the reject counts (studies, cells).
+    """
+    sims = truth.sizes["draw"]
+    appraisers = len(layout.appraisers)
+    intercept = truth["intercept"].to_numpy().reshape(sims, 2)
+    if spec.has("appraiser") and "appraiser_effect" not in truth:
+        scales = truth["sigma_appraiser"].to_numpy().reshape(sims, 2)
+        rho = truth["appraiser_correlation"].to_numpy().reshape(sims)
+        effects = forward.correlated_appraiser_effects(scales, rho, appraisers, rng)
+        truth = truth.assign(appraiser_effect=(("chain", "draw", "appraiser", "status"),
+                                               effects[None]))  # fmt: skip
+        truth = truth.assign_coords(appraiser=list(layout.appraisers))
+    effect = (truth["appraiser_effect"].transpose("chain", "draw", "appraiser", "status")
+              .to_numpy().reshape(sims, appraisers, 2) if "appraiser_effect" in truth
+              else np.zeros((sims, appraisers, 2)))  # fmt: skip
+    parts = len(layout.parts)
+    if reject_share is None:
+        prevalence = truth["prevalence"].to_numpy().reshape(sims)
+        bad = (rng.random((sims, parts)) < prevalence[:, None]).astype(int)
+    else:
+        bad = np.broadcast_to(reference_statuses(parts, reject_share), (sims, parts))
+    sigma = (truth["sigma_part"].to_numpy().reshape(sims) if "sigma_part" in truth
+             else np.zeros(sims))  # fmt: skip
+    part_effect = rng.standard_normal((sims, parts)) * sigma[:, None]
+    part, app = cell_index(layout)
+    rows = np.arange(sims)[:, None]
+    status = bad[:, part]  # (sims, cells)
+    eta = (intercept[rows, status] + part_effect[:, part]
+           + effect[rows, app[None, :], status])  # fmt: skip
+    trials = layout.cells["n"].to_numpy()
+    calls = rng.binomial(trials[None, :], expit(eta))
+    return truth, calls
+
+
 def hyper_parameters(spec: ModelSpec):
     from bayes_rr.families.base import HyperParameter
 
@@ -407,4 +455,8 @@ FAMILY = Family(
     production_calls=production_calls,
     partial_reference=True,
     dependence_check=True,
+    simulated=True,
+    simulated_parts="class",
+    default_plan_target="study__system__false_accept_rate",
+    simulate_calls=simulate_calls,
 )

@@ -6,6 +6,8 @@ prior draws) can read it without importing PyMC.
 
 from __future__ import annotations
 
+import numpy as np
+
 from bayes_rr.core.errors import DataError
 from bayes_rr.study.data import StudyData
 
@@ -45,3 +47,12 @@ def curve_design(study: StudyData, spec_name: str = "call-curve") -> dict:
     if not scale > 0:
         raise DataError(f"{study.source}: every part has the same reference value {x[0]:g}")
     return {"sides": sides, "x": x, "scale": scale}
+
+
+def reference_statuses(parts: int, reject_share: float) -> np.ndarray:
+    """Statuses with round(share x parts) rejects (at least one of each status); parts are
+    exchangeable, so which parts they are does not matter."""
+    rejects = min(max(1, round(reject_share * parts)), parts - 1)
+    status = np.zeros(parts, dtype=int)
+    status[:rejects] = 1
+    return status

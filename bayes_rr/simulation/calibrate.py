@@ -12,9 +12,10 @@ from pathlib import Path
 import numpy as np
 
 from bayes_rr.core.errors import SpecError
+from bayes_rr.families import family_of
 from bayes_rr.io.fit_folder import CALIBRATION_FILE
 from bayes_rr.priors.spec import ModelSpec
-from bayes_rr.simulation.designs import Design, check_simulated, needs_reference
+from bayes_rr.simulation.designs import Design, check_simulated
 from bayes_rr.simulation.quick import (
     CALIBRATED_KEYS,
     fractional_rank,
@@ -167,10 +168,11 @@ def run_calibration(
 
     spec, design = request.spec, request.design
     check_simulated(spec, design.part_mix)
-    if design.part_mix is not None and not needs_reference(spec):
+    if design.part_mix is not None and family_of(spec).simulated_parts in ("drawn", "class"):
         raise SpecError(
-            "--part-mix: a calibration draws its parts from the prior; picking borderline "
-            "parts would no longer be a draw from it. Leave --part-mix out for this model"
+            "--part-mix: a calibration draws its parts from the prior; choosing which parts "
+            "(borderline ones, or a share of reject parts) would no longer be a draw from "
+            "it. Leave --part-mix out for this model"
         )
     if spec.earlier is not None:
         raise SpecError(f"{spec.source}: a spec carrying an earlier study cannot be drawn "

@@ -21,7 +21,7 @@ from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.simulation.designs import (
     POOL_FACTOR,
     Design,
-    needs_reference,
+    parts_from_prior,
     pick_parts,
     skeleton_study,
 )
@@ -76,7 +76,9 @@ def with_calls(layout: StudyData, calls: np.ndarray, source: str) -> StudyData:
     n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
     s[cells["part_index"], cells["appraiser_index"]] = calls
     reference = None if layout.reference is None else layout.reference.to_numpy()
+    values = None if layout.reference_value is None else layout.reference_value.to_numpy()
     return study_from_cells(layout.parts, layout.appraisers, n, s, reference=reference,
+                            reference_value=values, limits=layout.limits,
                             source=source)  # fmt: skip
 
 
@@ -157,7 +159,7 @@ def simulate_design(
     a pool of candidates drawn from the same population (:data:`POOL_FACTOR` per part)
     so that that share of them is borderline.
     """
-    from bayes_rr.families import build_model
+    from bayes_rr.families import build_model, family_of
     from bayes_rr.families.base import part_linear_predictor
 
     if spec.earlier is not None and earlier_posterior is None:
@@ -165,11 +167,17 @@ def simulate_design(
             f"{spec.source}: this spec carries an earlier study as factors, which cannot be "
             "drawn from directly; plan with --prior-from EARLIER_FIT instead"
         )
-    layout = skeleton_study(design, spec)
-    pooled = design.part_mix is not None and not needs_reference(spec)
+    sides = _sides(earlier_posterior)
+    layout = skeleton_study(design, spec, sides=sides)
+    pooled = design.part_mix is not None and parts_from_prior(spec)
     drawn_layout = skeleton_study(design, spec, parts=design.parts * POOL_FACTOR) if pooled \
         else layout  # fmt: skip
     stated = spec if spec.earlier is None else _without_earlier(spec)
+    family = family_of(spec)
+    if family.simulate_calls is not None:
+        truth, calls = _forward_numpy(family, stated, layout, design, sims, seed,
+                                      earlier_posterior)  # fmt: skip
+        return SimulatedDesign(design, layout, calls.astype(int), truth)
     model = build_model(stated, drawn_layout)
     if earlier_posterior is None:
         truth, calls = _forward_prior(model, sims, seed)
@@ -188,6 +196,30 @@ def simulate_design(
         reached.append(share)
     return SimulatedDesign(design, layout, np.asarray(picked_calls, dtype=int), None,
                            np.asarray(reached))  # fmt: skip
+
+
+def _sides(earlier_posterior: xr.Dataset | None) -> tuple[str, ...]:
+    """The limits of simulated studies with measured values: the earlier fit's, so that
+    its draws (one per limit) fit the new studies; an upper limit otherwise."""
+    if earlier_posterior is not None and "side" in earlier_posterior.coords:
+        return tuple(str(side) for side in earlier_posterior["side"].to_numpy())
+    return ("upper",)
+
+
+def _forward_numpy(family, spec: ModelSpec, layout: StudyData, design: Design, sims: int,
+                   seed: int, earlier_posterior: xr.Dataset | None):  # fmt: skip
+    """Truth and calls from a family's own simulator: the hyper-parameters from the prior
+    (numpy forward draws) or from the earlier fit's posterior."""
+    from bayes_rr.priors.prior_draws import draw_prior
+
+    if earlier_posterior is None:
+        truth = draw_prior(spec, layout, sims, seed)
+    else:
+        hypers = [name for name in earlier_posterior.data_vars
+                  if not set(earlier_posterior[name].dims) & set(GROUP_DIMS)]  # fmt: skip
+        truth = earlier_hypers(earlier_posterior[hypers], sims, seed)
+    rng = np.random.default_rng([seed, 19])
+    return family.simulate_calls(spec, layout, truth, rng, design.part_mix)
 
 
 def _without_earlier(spec: ModelSpec) -> ModelSpec:

@@ -468,6 +468,8 @@ def study_from_cells(
     reference: Sequence[int] | None = None,
     source: str = "<simulated>",
     rng: np.random.Generator | None = None,
+    reference_value: Sequence[float] | None = None,
+    limits: tuple[float | None, float | None] = (None, None),
 ) -> StudyData:
     """Build a study from a parts x appraisers grid of trials ``n`` and reject counts ``s``.
 
@@ -496,7 +498,13 @@ def study_from_cells(
     ref = None
     if reference is not None:
         ref = pd.Series(np.asarray(reference, dtype=np.int8), index=[str(p) for p in parts])
-    return build_study(long, source=source, reference=ref)
+    values = None
+    if reference_value is not None:
+        values = pd.Series(np.asarray(reference_value, dtype=float),
+                           index=[str(p) for p in parts], name="reference_value")  # fmt: skip
+        values.index.name = "part"
+    return build_study(long, source=source, reference=ref, reference_value=values,
+                       limits=limits)  # fmt: skip
 
 
 def _is_number(text: str) -> bool:
