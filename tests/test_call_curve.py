@@ -10,6 +10,7 @@ import json
 import numpy as np
 import pytest
 from scipy import stats
+from scipy.special import logit
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
@@ -77,8 +78,11 @@ def test_call_curve_recovers_the_effective_limits_end_to_end(tmp_path):
     for j, name in enumerate(sim.study.appraisers):
         row = rows[("effective_limit[side=upper]", name)]
         assert row["lower"] <= sim.params["effective_limits"][j] <= row["upper"], name
+        # the 10%-90% distance: 2 ln 9 times the logistic scale (docs/statistics.md,
+        # family 5; the logistic quantile function, scipy.special.logit)
         width = rows[("transition_width", name)]
-        assert width["lower"] <= sim.params["widths"][j] <= width["upper"], name
+        true_width = 2 * logit(0.9) * sim.params["widths"][j]
+        assert width["lower"] <= true_width <= width["upper"], name
         assert ("false_accept_rate", name) in rows
     assert "Of bad parts" in " ".join(result.stdout.split())
     report = runner.invoke(app, ["report", str(out)])
@@ -142,3 +146,15 @@ def test_a_two_sided_study_builds_a_model_with_both_limits():
     assert list(model.coords["side"]) == ["lower", "upper"]
     logp = model.compile_logp(mode="NUMBA")(model.initial_point())
     assert np.isfinite(logp)
+
+
+def test_transition_width_is_the_ten_to_ninety_distance_for_either_link():
+    """docs/statistics.md family 5: transition_width = the distance in x between 10% and
+    90% reject probability. Reference: the logistic and normal quantile functions
+    (scipy.stats.logistic.ppf, scipy.stats.norm.ppf) at 0.1 and 0.9."""
+    from bayes_rr.families.curves import ten_ninety_factor
+
+    for link, dist in (("logistic", stats.logistic), ("probit", stats.norm)):
+        assert ten_ninety_factor(link) == pytest.approx(dist.ppf(0.9) - dist.ppf(0.1))
+    assert ten_ninety_factor("logistic") == pytest.approx(4.394, abs=5e-4)
+    assert ten_ninety_factor("probit") == pytest.approx(2.563, abs=5e-4)

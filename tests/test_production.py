@@ -391,7 +391,7 @@ def curve_case(t=10.1, w=0.15):
     spec = dataclasses.replace(load_spec("call-curve"), link="probit")
     posterior = xr.Dataset({
         "effective_limit": (("chain", "draw", "appraiser", "side"), np.full((1, 1, 1, 1), t)),
-        "transition_width": (("chain", "draw", "appraiser"), np.full((1, 1, 1), w)),
+        "curve_scale": (("chain", "draw", "appraiser"), np.full((1, 1, 1), w)),
     })  # fmt: skip
     return sim.study, spec, posterior
 

@@ -141,7 +141,7 @@ def test_call_curve_simulated_calls_follow_the_true_curves():
     x = study.reference_value.to_numpy()
     assert study.limits[0] is None and np.sum(x > study.limits[1]) == 6
     t = sim.truth["effective_limit"].sel(side="upper").to_numpy()[0]  # (sims, appraiser)
-    w = sim.truth["transition_width"].to_numpy()[0]
+    w = sim.truth["curve_scale"].to_numpy()[0]
     cells = sim.layout.cells
     part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
     p = expit((x[part][None, :] - t[:, app]) / w[:, app])

@@ -35,6 +35,7 @@ from bayes_rr.families.curves import (
     curve_probabilities,
     known_status,
     production_nodes,
+    ten_ninety_factor,
 )
 from bayes_rr.families.layout import coords, curve_design
 from bayes_rr.families.status import called_mask, study_rates
@@ -70,7 +71,8 @@ CURVE_INTERCEPTS = {
 CURVE_INTERCEPTS_WHY = (
     "normal(0, 0.5) on the typical appraiser's bias (effective limit minus the limit) in "
     "standard deviations of the reference values; normal(-2, 1) on the log of the typical "
-    "transition width in the same units (median 0.14 sd, 95% range 0.02 to 0.95 sd)."
+    "curve scale w in the same units (median 0.14 sd, 95% range 0.02 to 0.95 sd; the "
+    "transition width, 10% to 90% reject, is 4.39 w for the logistic)."
 )
 LINKS = ("logistic", "probit")
 
@@ -85,6 +87,16 @@ INFO = FamilyInfo(
     needs=("reference_value",),
 )
 SCALE_VARIABLES = {"limit": "sigma_limit", "width": "sigma_width"}
+
+CURVE_SCALE = "curve_scale"
+"""The posterior variable of each appraiser's w_j, the scale of F's argument (fits
+written before it had its own name called it ``transition_width``)."""
+
+
+def curve_scale_draws(posterior: xr.Dataset) -> np.ndarray:
+    """(S, appraiser) draws of w_j, from a fit of any version."""
+    return draws_of(posterior, CURVE_SCALE if CURVE_SCALE in posterior else "transition_width")
+
 
 P_FLOOR = 1e-12
 """Call probabilities are kept in [P_FLOOR, 1 - P_FLOOR] in the likelihood (two limits'
@@ -132,7 +144,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             width_spread = pymc_prior("sigma_width", spec.term("width").prior)
             u = pm.Normal("width_z", 0.0, 1.0, dims="appraiser")
             w_std = pt.exp(log_width + width_spread * u)
-        pm.Deterministic("transition_width", s * w_std, dims="appraiser")
+        pm.Deterministic(CURVE_SCALE, s * w_std, dims="appraiser")
         # standardised distance of each cell's part from each limit
         distance = (x[part][:, None] - limits[None, :]) / s
         p = 0.0
@@ -163,7 +175,7 @@ def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, dra
         w_log = w_log + spread[:, None] * rng.standard_normal((draws, n_app))
         out["sigma_width"] = ((), spread)
     out["log_width_mean"] = ((), log_width)
-    out["transition_width"] = (("appraiser",), s * np.exp(w_log))
+    out[CURVE_SCALE] = (("appraiser",), s * np.exp(w_log))
     return out
 
 
@@ -176,7 +188,8 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDra
     signs = np.array([sign for _, _, sign in design["sides"]])
     scale = design["scale"]
     limit = draws_of(posterior, "effective_limit")  # (S, appraiser, side)
-    width = draws_of(posterior, "transition_width")  # (S, appraiser)
+    width = curve_scale_draws(posterior)  # (S, appraiser)
+    ten_ninety = ten_ninety_factor(spec.link)
     p = curve_probabilities(limit, width, design["x"], signs, spec.link)
     cells = study.cells
     part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
@@ -190,14 +203,17 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDra
     extra = {
         ("study", "appraiser", "effective_limit"): (limit, side),
         ("study", "appraiser", "bias"): (limit - limits, side),
-        ("study", "appraiser", "transition_width"): (width, "appraiser"),
+        ("study", "appraiser", "transition_width"): (ten_ninety * width, "appraiser"),
         ("study", "system", "bias"): ((limit - limits).mean(axis=1), "side"),
         ("study", "system", "limit_spread"): (limit.std(axis=1), "side"),
-        ("study", "system", "transition_width"): (width.mean(axis=1), None),
+        ("study", "system", "transition_width"): (ten_ninety * width.mean(axis=1), None),
         ("population", "system", "effective_limit"): (limits + scale * bias_mean, "side"),
         ("population", "system", "bias"): (scale * bias_mean, "side"),
         ("population", "system", "limit_spread"): (scale * spread, None),
-        ("population", "system", "transition_width"): (scale * np.exp(log_width), None),
+        ("population", "system", "transition_width"): (
+            ten_ninety * scale * np.exp(log_width),
+            None,
+        ),
     }
     extra.update(_study_wrong_calls(p, design["x"], limits, signs, called_mask(study)))
     return LatentDraws(p, {}, log_lik, extra)
@@ -239,7 +255,7 @@ def production_calls(
     signs = np.array([sign for _, _, sign in design["sides"]])
     production = Production(mix.mean, mix.sd, mix.values)
     limit = draws_of(posterior, "effective_limit") - guard * signs
-    width = draws_of(posterior, "transition_width")
+    width = curve_scale_draws(posterior)
     try:
         return production_nodes(limit, width, limits, signs, spec.link, production)
     except ValueError:

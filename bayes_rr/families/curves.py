@@ -25,6 +25,16 @@ BLOCK = 400
 """Draws per block when integrating (bounds the memory of the draws x nodes arrays)."""
 
 
+def ten_ninety_factor(link: str) -> float:
+    """The distance between 10% and 90% reject probability in units of the curve's scale
+    w: 2 ln 9 (about 4.394) for the logistic, 2 z_0.9 (about 2.563) for the normal CDF.
+    The ``transition_width`` results are this times w, so they mean the same whatever
+    the link."""
+    from scipy.special import logit, ndtri
+
+    return float(2 * ndtri(0.9)) if link == "probit" else float(2 * logit(0.9))
+
+
 def link_cdf(link: str, value: np.ndarray) -> np.ndarray:
     return ndtr(value) if link == "probit" else expit(value)
 

@@ -130,6 +130,7 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
 
 def _call_curve_figure(fit: LoadedFit, n: np.ndarray, s: np.ndarray, prob: float):
     """Curve bands on a grid of reference values from up to 400 posterior draws."""
+    from bayes_rr.families.call_curve import curve_scale_draws
     from bayes_rr.families.curves import curve_probabilities
     from bayes_rr.families.layout import curve_design
     from bayes_rr.report import plots
@@ -139,7 +140,7 @@ def _call_curve_figure(fit: LoadedFit, n: np.ndarray, s: np.ndarray, prob: float
     signs = np.array([sign for _, _, sign in design["sides"]])
     posterior = thin(fit.idata.posterior, 400, seed=0)
     limit = posterior["effective_limit"].to_numpy()[0]
-    width = posterior["transition_width"].to_numpy()[0]
+    width = curve_scale_draws(posterior)
     x = design["x"]
     pad = 0.05 * (x.max() - x.min())
     grid = np.linspace(x.min() - pad, x.max() + pad, 200)
