@@ -34,6 +34,7 @@ def _studies(small_sim):
         "reference-logit": status,
         "latent-class": status,
         "call-curve": two_sided,
+        "latent-trait": small_sim.study,
     }
 
 
@@ -60,8 +61,10 @@ def _columns(values: np.ndarray) -> np.ndarray:
 
 
 @pytest.mark.parametrize(
-    "name", ["crossed-logit", "beta-binomial", "reference-logit", "latent-class", "call-curve"]
-)
+    "name",
+    ["crossed-logit", "beta-binomial", "reference-logit", "latent-class", "call-curve",
+     "latent-trait"],
+)  # fmt: skip
 def test_numpy_prior_draws_match_pymc_forward_draws(name, small_sim):
     spec = load_spec(name)
     study = _studies(small_sim)[name]

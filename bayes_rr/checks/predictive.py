@@ -143,8 +143,9 @@ def dependence_sentence(result: CheckResult, spec: ModelSpec) -> str | None:
         f"{found.p_value:.3f}): the calls depend on each other beyond two classes, as when "
         "the judged property is continuous (a length, a diameter) and borderline parts "
         "draw mixed calls from everyone. The latent class false reject and false accept "
-        "rates may then be biased; with a measured value per part use call-curve, and read "
-        "these rates as a rough guide (compare models with 'bayes-rr compare')"
+        "rates may then be biased. Fit latent-trait (parts on the property's scale) and "
+        "weigh the two with 'bayes-rr compare'; with a measured value per part use "
+        "call-curve"
     )
 
 

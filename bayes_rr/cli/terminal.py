@@ -169,6 +169,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         print_rates(summary)
     if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
         print_curves(summary)
+    if any(r["key"] == "threshold" for r in summary["estimands"]):
+        print_thresholds(summary)
     # the verdicts right after the rates, as in the report's answer box
     print_criteria(summary)
     if not any(r["level"] == "study" and r["key"] == "rr_variance" for r in summary["estimands"]):
@@ -377,6 +379,33 @@ def print_curves(summary: dict) -> None:
         spread = rows.get((key.replace("effective_limit", "limit_spread"), "study", "system", None))
         if spread is not None:
             out.print(f"spread of the effective limits over these appraisers: {_value(spread)}")
+
+
+def print_thresholds(summary: dict) -> None:
+    """Each appraiser's threshold and transition width on the latent scale (latent trait
+    model), and the spread of thresholds against the widths."""
+    rows = {(r["key"], r["scope"], r["level"], r["appraiser"]): r for r in summary["estimands"]}
+    table = Table(title="Where each appraiser rejects, on the latent scale (sds of the parts)")
+    table.add_column("appraiser")
+    table.add_column("threshold", justify="right")
+    table.add_column("transition width", justify="right")
+    for name in summary["design"]["appraiser_names"]:
+        table.add_row(
+            name,
+            _value(rows.get(("threshold", "study", "appraiser", name))),
+            _value(rows.get(("transition_width", "study", "appraiser", name))),
+        )
+    out.print(table)
+    spread = rows.get(("threshold_spread", "study", "system", None))
+    if spread is not None:
+        out.print(f"spread of the thresholds over these appraisers: {_value(spread)}")
+    ratio = rows.get(("spread_to_width", "population", "system", None))
+    if ratio is not None:
+        out.print(
+            "population: spread of thresholds over the typical transition width "
+            f"{_value(ratio)} (how far apart appraisers place their thresholds, in zones of "
+            "unreliable calls)"
+        )
 
 
 def print_rates(summary: dict) -> None:

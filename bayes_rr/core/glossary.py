@@ -58,12 +58,31 @@ GLOSSARY: dict[str, tuple[str, str]] = {
     "bias": ("limit bias", "effective limit minus the specification limit"),
     "transition_width": (
         "transition width",
-        "the distance in the measured value from 10% to 90% reject probability, whatever "
-        "the curve's link: the zone where calls are unreliable",
+        "the distance along the judged property (the measured value, or the latent scale) "
+        "from 10% to 90% reject probability, whatever the curve's link: the zone where "
+        "calls are unreliable",
     ),
     "limit_spread": (
         "spread of effective limits",
         "the standard deviation of the appraisers' effective limits",
+    ),
+    "threshold": (
+        "threshold",
+        "the position on the latent scale at which the appraiser rejects half the time, in "
+        "sds of the parts' positions",
+    ),
+    "threshold_spread": (
+        "spread of thresholds",
+        "the standard deviation of the appraisers' thresholds on the latent scale",
+    ),
+    "spread_to_width": (
+        "threshold spread over width",
+        "the spread of the thresholds over the typical transition width: how far apart "
+        "appraisers place their thresholds, in units of their zone of unreliable calls",
+    ),
+    "part_position": (
+        "part position",
+        "the part's place on the latent scale of the judged property, in sds of the parts",
     ),
     "bad_share": ("bad share", "the share of bad parts among the parts production makes"),
     "escaped_per_million": (

@@ -22,6 +22,7 @@ from bayes_rr.families import (
     call_curve,
     crossed_logit,
     latent_class,
+    latent_trait,
     reference_logit,
 )
 from bayes_rr.families.base import Family
@@ -34,7 +35,14 @@ if TYPE_CHECKING:
 
 FAMILIES: dict[str, Family] = {
     module.FAMILY.name: module.FAMILY
-    for module in (beta_binomial, crossed_logit, reference_logit, latent_class, call_curve)
+    for module in (
+        beta_binomial,
+        crossed_logit,
+        reference_logit,
+        latent_class,
+        call_curve,
+        latent_trait,
+    )
 }
 """The one table of families: adding a family adds its module here."""
 

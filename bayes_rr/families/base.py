@@ -136,7 +136,8 @@ class Family:
     (a reference status per part; the mix is the share of reject parts), ``class`` (a
     hidden status per part; the mix, when given, fixes the share of reject parts) or
     ``values`` (a measured value per part and a limit; the mix is the share of parts
-    beyond the limit)."""
+    beyond the limit) or ``positions`` (a latent position per part from the population
+    that fixes the model's scale; no mix)."""
     simulate_calls: Callable[..., tuple[xr.Dataset, np.ndarray]] | None = None
     """``(spec, layout, truth, rng, reject_share)`` -> (truth completed with the study's
     own effects, reject counts (sims, cells)), for a family whose calls are not an

@@ -69,7 +69,13 @@ class FamilyInfo:
 
     @property
     def has_curve(self) -> bool:
+        """Whether the spec takes ``[curve] link`` (call curve, latent trait)."""
         return bool(self.links)
+
+    @property
+    def measured_curve(self) -> bool:
+        """Whether calls are placed along a measured value against a limit."""
+        return "reference_value" in self.needs
 
 
 INTERCEPT_PRIOR = prior("normal", mu=0.0, sigma=1.5)

@@ -132,6 +132,7 @@ SCALED_LIKELIHOOD = {
     "latent_class": "each part's likelihood with its class summed out and its part "
     "effect integrated out",
     "call_curve": "the binomial cell likelihood",
+    "latent_trait": "the binomial cell likelihood (the parts' positions are sampled)",
 }
 """Which likelihood power-scaling raises to a power, per family (said in the report)."""
 

@@ -381,7 +381,9 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         if link not in info.links:
             raise SpecError(f"{source}: curve.link = {link!r}: expected one of {list(info.links)}")
     elif "curve" in raw:
-        raise SpecError(f"{source}: [curve] is for the call_curve family, not {family!r}")
+        raise SpecError(
+            f"{source}: [curve] is for the call_curve and latent_trait families, not {family!r}"
+        )
     concentration = None
     if info.has_concentration:
         table = _table(raw, "concentration", source, "")

@@ -208,6 +208,30 @@ def _value_interval(row: dict | None) -> str:
     return esc(interval_text(row["mean"], row["lower"], row["upper"]))
 
 
+def threshold_table(summary: dict) -> str:
+    """Each appraiser's threshold and transition width on the latent scale (latent trait
+    model); empty for other models."""
+    rows = {(r["key"], r["scope"], r["level"], r["appraiser"]): r for r in summary["estimands"]}
+    if not any(key[0] == "threshold" for key in rows):
+        return ""
+    body = [
+        [esc(name), _value_interval(rows.get(("threshold", "study", "appraiser", name))),
+         _value_interval(rows.get(("transition_width", "study", "appraiser", name)))]
+        for name in summary["design"]["appraiser_names"]
+    ]  # fmt: skip
+    spread = _value_interval(rows.get(("threshold_spread", "study", "system", None)))
+    ratio = _value_interval(rows.get(("spread_to_width", "population", "system", None)))
+    return (
+        "<p>Where each appraiser rejects on the latent scale of the judged property "
+        "(threshold: rejected half the time; transition width: the zone of inconsistent "
+        "calls), in standard deviations of the parts' positions, since nobody measured the "
+        "property; posterior means with intervals. Spread of the thresholds over these "
+        f"appraisers (reproducibility on this scale): {spread}; for the population, the "
+        f"spread of thresholds over the typical transition width: {ratio}.</p>"
+        + html_table(["appraiser", "threshold", "transition width"], body, {1, 2})
+    )
+
+
 def _curve_table(summary: dict) -> str:
     """Each appraiser's effective limit(s), bias and transition width, in the units of
     the reference value."""

@@ -95,6 +95,12 @@ def check_simulated(spec: ModelSpec, part_mix: float | None) -> None:
         )
     if part_mix is not None and not 0 <= part_mix <= 1:
         raise SpecError(f"--part-mix {part_mix!r}: expected a share from 0 to 1")
+    kind = family_of(spec).simulated_parts
+    if kind == "positions" and part_mix is not None:
+        raise SpecError(
+            f"--part-mix {part_mix!r}: model {spec.name!r} draws each part's position from "
+            "the population of parts that fixes its scale; leave --part-mix out"
+        )
     if not parts_from_prior(spec) and part_mix is not None and not 0 < part_mix < 1:
         what = {
             "reference": "parts of both reference statuses",

@@ -256,3 +256,32 @@ def simulate_call_curve(
     params = {"effective_limits": t, "widths": w, "x": x, "upper_limit": upper_limit,
               "link": link, "seed": seed}  # fmt: skip
     return SimulatedStudy(study, p, params)
+
+
+def simulate_latent_trait(
+    n_parts: int = 40,
+    n_appraisers: int = 4,
+    n_trials: int = 3,
+    *,
+    thresholds: Sequence[float] = (-0.3, 0.0, 0.2, 0.5),
+    widths: Sequence[float] = (0.15, 0.25, 0.2, 0.3),
+    link: str = "probit",
+    seed: int = 0,
+) -> SimulatedStudy:
+    """Simulate calls on a continuous property nobody measured: positions z_i ~ N(0, 1),
+    p_ij = F((z_i - t_j) / w_j) with the given thresholds t_j and curve scales w_j (one
+    per appraiser); no reference. ``params`` holds z, t and w."""
+    from scipy.special import ndtr
+
+    rng = np.random.default_rng(seed)
+    t = np.asarray(thresholds, dtype=float)[:n_appraisers]
+    w = np.asarray(widths, dtype=float)[:n_appraisers]
+    z = rng.standard_normal(n_parts)
+    arg = (z[:, None] - t[None, :]) / w[None, :]
+    p = ndtr(arg) if link == "probit" else expit(arg)
+    n = np.full((n_parts, n_appraisers), n_trials)
+    s = rng.binomial(n, p)
+    study = study_from_cells(_labels("P", n_parts), _labels("A", n_appraisers), n, s,
+                             source=f"simulated latent trait (seed {seed})", rng=rng)  # fmt: skip
+    return SimulatedStudy(study, p, {"z": z, "thresholds": t, "widths": w, "link": link,
+                                     "seed": seed})  # fmt: skip

@@ -38,7 +38,7 @@ def preflight(study: StudyData, spec, production=None) -> Preflight:
     :class:`DataError` for a limit in the wrong units, return what to say otherwise."""
     family = family_of(spec)
     warnings: list[str] = []
-    if family.info.has_curve and study.reference_value is not None:
+    if family.info.measured_curve and study.reference_value is not None:
         warnings += limit_warnings(study)
     return Preflight(tuple(ignored_options(study, spec, production)), tuple(warnings))
 
@@ -140,13 +140,13 @@ def ignored_options(study: StudyData, spec, production=None) -> list[str]:
     """One line for each option or column given that ``spec``'s model does not use."""
     info = family_of(spec).info
     out = []
-    if any(v is not None for v in study.limits) and not info.has_curve:
+    if any(v is not None for v in study.limits) and not info.measured_curve:
         limits = ", ".join(f"{name} {limit:g}" for name, limit, _ in _sides(study))
         out.append(
             f"the specification limits ({limits}) are not used by the {spec.name} model: "
             "only call-curve places calls against a limit"
         )
-    if study.reference_value is not None and not info.has_curve:
+    if study.reference_value is not None and not info.measured_curve:
         out.append(
             f"the measured reference values are not used by the {spec.name} model: only "
             "call-curve uses them"

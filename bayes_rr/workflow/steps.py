@@ -103,7 +103,7 @@ def _figures(fit: LoadedFit, checks: dict | None) -> dict:
     figures["rank_plots"] = plots.rank_plots(hyper)
     if not summary["diagnostics"]["ok"]:
         return figures
-    if family_of(fit.spec).info.has_curve:
+    if family_of(fit.spec).info.measured_curve:
         figures["call_curves"] = _call_curve_figure(fit, n, s, prob)
     estimands = fit.idata["estimands"]
     draws = {
