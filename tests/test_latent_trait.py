@@ -137,3 +137,67 @@ def test_the_spec_takes_a_curve_link_and_refuses_others():
         == "probit"  # fmt: skip
     with pytest.raises(SpecError, match=r"curve\.link = 'cloglog'"):
         parse_spec(text.replace('link = "logistic"', 'link = "cloglog"'), "c.toml")
+
+
+def test_part_log_likelihood_matches_numerical_integration():
+    """Each part's calls with its position integrated over N(0, 1), against
+    scipy.integrate.quad of prod_j Binom(s_ij; n_ij, expit((z - t_j)/w_j)) phi(z), with one
+    curve as steep as w = 0.03."""
+    import xarray as xr
+    from scipy import integrate
+    from scipy.special import expit
+
+    study = simulate_latent_trait(10, 3, 3, seed=2).study
+    t, w = np.array([-0.2, 0.1, 0.4]), np.array([0.03, 0.2, 0.5])
+    dims = ("chain", "draw", "appraiser")
+    posterior = xr.Dataset({"threshold": (dims, t[None, None]),
+                            "curve_scale": (dims, w[None, None])})  # fmt: skip
+    ours = latent_trait.part_log_likelihood(posterior, "logistic", study)[0]
+    cells = study.cells
+    for i in range(len(study.parts)):
+        mine = cells[cells["part_index"] == i]
+        j, s, n = (mine[c].to_numpy() for c in ("appraiser_index", "s", "n"))
+
+        def integrand(z, j=j, s=s, n=n):
+            return np.prod(stats.binom.pmf(s, n, expit((z - t[j]) / w[j]))) * stats.norm.pdf(z)
+
+        reference = integrate.quad(integrand, -8, 8, points=list(t), limit=500)[0]
+        assert ours[i] == pytest.approx(np.log(reference), abs=1e-6), i
+
+
+def _loo_idata(unit_values: dict[str, np.ndarray], seed: int):
+    import arviz as az
+    import xarray as xr
+
+    rng = np.random.default_rng(seed)
+    groups = {}
+    for name, values in unit_values.items():
+        dim = "part" if name == "s_part" or values.shape[-1] == 8 else "cell"
+        groups[name] = (("chain", "draw", dim), values)
+    posterior = xr.Dataset({"x": (("chain", "draw"), rng.normal(size=(2, 200)))})
+    return az.InferenceData(posterior=posterior, log_likelihood=xr.Dataset(groups))
+
+
+def test_compare_leaves_out_parts_when_a_latent_class_fit_is_among_the_fits():
+    """A latent class fit has one likelihood term per part; a latent trait fit gives one
+    per part beside its cells; a crossed-logit fit only per cell (refused, named)."""
+    from bayes_rr.checks.predictive import compare_fits
+
+    rng = np.random.default_rng(1)
+    per_part = rng.normal(-3.0, 0.1, (2, 200, 8))
+    per_cell = rng.normal(-1.0, 0.1, (2, 200, 24))
+    latent_class = _loo_idata({"s": per_part}, 1)
+    trait = _loo_idata({"s": per_cell, "s_part": per_part + 0.5}, 2)
+    crossed = _loo_idata({"s": per_cell}, 3)
+    same = dict.fromkeys(("latent-class", "latent-trait", "crossed-logit"), "abc")
+    done = compare_fits({"latent-class": latent_class, "latent-trait": trait},
+                        {k: same[k] for k in ("latent-class", "latent-trait")})  # fmt: skip
+    assert done["unit"] == "part" and "one part at a time" in done["method"]
+    assert done["models"][0]["model"] == "latent-trait"  # 0.5 more log lik per part
+    assert done["models"][1]["elpd_diff"] == pytest.approx(8 * 0.5, abs=0.05)
+    with pytest.raises(DataError, match="'crossed-logit' gives none per part"):
+        compare_fits({"latent-class": latent_class, "crossed-logit": crossed},
+                     {k: same[k] for k in ("latent-class", "crossed-logit")})  # fmt: skip
+    cells_only = compare_fits({"latent-trait": trait, "crossed-logit": crossed},
+                              {k: same[k] for k in ("latent-trait", "crossed-logit")})  # fmt: skip
+    assert cells_only["unit"] == "cell"

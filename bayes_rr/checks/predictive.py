@@ -26,9 +26,7 @@ import xarray as xr
 from bayes_rr.core.errors import DataError
 from bayes_rr.families import family_of
 from bayes_rr.priors.spec import ModelSpec
-from bayes_rr.results.estimands import (
-    compute_estimands,
-)
+from bayes_rr.results.estimands import PART_LOG_LIK, compute_estimands
 from bayes_rr.study.data import StudyData
 
 METHOD = "posterior predictive check"
@@ -402,6 +400,34 @@ def _resample_earlier(prior, spec: ModelSpec, draws: int, seed: int):
 # model comparison
 
 
+def _unit(idata, variable: str) -> str:
+    return idata.log_likelihood[variable].dims[-1]
+
+
+def _loo_variables(named_idata: dict[str, object]) -> dict[str, str]:
+    """The log likelihood variable LOO uses for each fit: the cell one when every fit has
+    it; otherwise one term per part, which a latent class fit has and a latent trait fit
+    gives beside its cells. Refused when a fit has neither in common."""
+    units = {name: _unit(idata, "s") for name, idata in named_idata.items()}
+    if len(set(units.values())) == 1:
+        return dict.fromkeys(named_idata, "s")
+    out = {}
+    for name, idata in named_idata.items():
+        if units[name] == "part":
+            out[name] = "s"
+        elif PART_LOG_LIK in idata.log_likelihood:
+            out[name] = PART_LOG_LIK
+        else:
+            listing = ", ".join(f"{k}: one term per {v}" for k, v in units.items())
+            raise DataError(
+                f"the fits' log likelihoods have different units ({listing}), and {name!r} "
+                "gives none per part; LOO compares models whose likelihoods leave out the "
+                "same units (a latent class fit leaves out a part, latent-trait both a part "
+                "and a cell, the other models a part-appraiser cell)"
+            )
+    return out
+
+
 def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) -> dict:
     """PSIS-LOO on the cell log likelihood, elpd differences with SE, stacking weights and
     Pareto-k diagnostics explained in words."""
@@ -409,14 +435,9 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
 
     if len(named_idata) < 2:
         raise DataError("compare needs at least two fit folders")
-    units = {name: idata.log_likelihood["s"].dims[-1] for name, idata in named_idata.items()}
-    if len(set(units.values())) > 1:
-        listing = ", ".join(f"{k}: one term per {v}" for k, v in units.items())
-        raise DataError(
-            f"the fits' log likelihoods have different units ({listing}); LOO compares "
-            "models whose likelihoods leave out the same units (a latent class fit leaves "
-            "out a part, the other models a part-appraiser cell)"
-        )
+    variables = _loo_variables(named_idata)
+    unit = "part" if any(v == PART_LOG_LIK or _unit(named_idata[k], v) == "part"
+                         for k, v in variables.items()) else "cell"  # fmt: skip
     if len(set(data_hashes.values())) > 1:
         listing = ", ".join(f"{k}: {v[:12]}" for k, v in data_hashes.items())
         raise DataError(
@@ -428,7 +449,8 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
         warnings.filterwarnings("ignore", message="Estimated shape parameter of Pareto")
         # arviz 0.23's compare calls DataFrame.sort_values(inplace=True), deprecated in pandas 3.
         warnings.filterwarnings("ignore", message="The inplace keyword in DataFrame.sort_values")
-        loos = {name: az.loo(idata, pointwise=True) for name, idata in named_idata.items()}
+        loos = {name: az.loo(idata, pointwise=True, var_name=variables[name])
+                for name, idata in named_idata.items()}  # fmt: skip
         table = az.compare(loos, ic="loo", method="stacking")
     rows = []
     for name, row in table.iterrows():
@@ -439,9 +461,9 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
             words = "all Pareto k <= 0.7: the LOO estimate is reliable"
         else:
             words = (
-                f"{bad} of {k.size} cells have Pareto k > 0.7 ({very_bad} above 1): leaving "
-                "those cells out changes the posterior a lot, so their LOO terms are "
-                "unreliable. Such cells usually hold calls the model finds surprising; "
+                f"{bad} of {k.size} {unit}s have Pareto k > 0.7 ({very_bad} above 1): "
+                f"leaving those {unit}s out changes the posterior a lot, so their LOO terms "
+                f"are unreliable. Such {unit}s usually hold calls the model finds surprising; "
                 "treat small elpd differences with caution or use K-fold cross-validation"
             )
         rows.append(
@@ -473,8 +495,14 @@ def compare_fits(named_idata: dict[str, object], data_hashes: dict[str, str]) ->
                 f"; its lead over {second['model']} ({abs(second['elpd_diff']):.1f} elpd, "
                 f"SE {second['diff_se']:.1f}) is more than two standard errors"
             )
+    method = ("PSIS-LOO on the cell-level log likelihood (ArviZ), stacking weights"
+              if unit == "cell" else
+              "PSIS-LOO leaving out one part at a time (each part's calls with its own latent "
+              "quantity integrated out, since a latent class fit has no other unit; ArviZ), "
+              "stacking weights")  # fmt: skip
     return {
-        "method": "PSIS-LOO on the cell-level log likelihood (ArviZ), stacking weights",
+        "unit": unit,
+        "method": method,
         "models": rows,
         "verdict": verdict,
     }

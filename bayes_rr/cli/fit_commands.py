@@ -325,7 +325,7 @@ def compare(
     longest = max(len(row["model"]) for row in result["models"])
     table.add_column("model", min_width=min(longest, 30))
     for col, width in (("elpd_loo (SE)", 13), ("elpd diff (SE)", 12), ("p_loo", 5),
-                       ("weight", 6), ("cells k > 0.7", 5)):  # fmt: skip
+                       ("weight", 6), (f"{result.get('unit', 'cell')}s k > 0.7", 5)):  # fmt: skip
         table.add_column(col, width=width)
     for row in result["models"]:
         table.add_row(

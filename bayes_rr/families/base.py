@@ -42,6 +42,10 @@ class LatentDraws:
     q_study: np.ndarray | None = None
     """1 - p_study computed without cancellation (expit(-eta), or from gamma variates),
     so p(1 - p) stays positive where p rounds to 1; None: 1 - p_study is used."""
+    part_log_lik: np.ndarray | None = None
+    """(S, part) log likelihood of each part's calls with the part's own latent quantity
+    integrated out, for comparing by PSIS-LOO with a model whose unit is a part (latent
+    class); None when the family does not give it."""
 
 
 @dataclass(frozen=True)

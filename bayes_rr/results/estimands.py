@@ -156,14 +156,19 @@ def log_likelihood_dataset(
         labels = [f"{p} | {a}" for p, a in zip(cells["part"], cells["appraiser"], strict=True)]
     values = latent.cell_log_lik.reshape((chains, draws, -1))
     dim = latent.log_lik_dim
-    return xr.Dataset(
-        {"s": (("chain", "draw", dim), values)},
-        coords={
-            "chain": posterior["chain"].to_numpy(),
-            "draw": posterior["draw"].to_numpy(),
-            dim: labels,
-        },
-    )
+    data = {"s": (("chain", "draw", dim), values)}
+    coords = {"chain": posterior["chain"].to_numpy(), "draw": posterior["draw"].to_numpy(),
+              dim: labels}  # fmt: skip
+    if latent.part_log_lik is not None and dim != "part":
+        # a second unit, for comparing with a model whose likelihood leaves out a part
+        data[PART_LOG_LIK] = (("chain", "draw", "part"),
+                              latent.part_log_lik.reshape((chains, draws, -1)))  # fmt: skip
+        coords["part"] = list(study.parts)
+    return xr.Dataset(data, coords=coords)
+
+
+PART_LOG_LIK = "s_part"
+"""The log likelihood variable with one term per part, beside the cell one."""
 
 
 def compute_estimands(
