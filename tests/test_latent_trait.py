@@ -201,3 +201,67 @@ def test_compare_leaves_out_parts_when_a_latent_class_fit_is_among_the_fits():
     cells_only = compare_fits({"latent-trait": trait, "crossed-logit": crossed},
                               {k: same[k] for k in ("latent-trait", "crossed-logit")})  # fmt: skip
     assert cells_only["unit"] == "cell"
+
+
+def _with_partial_reference(seed: int, limit: float = 0.3, share: float = 1 / 3):
+    sim = simulate_latent_trait(60, 4, 3, seed=seed)
+    status = (sim.params["z"] > limit).astype(int)
+    known = np.random.default_rng(seed).random(60) < share
+    table = sim.study.calls.copy()
+    given = {p: (str(s) if k else "") for p, s, k in zip(sim.study.parts, status, known,
+                                                         strict=True)}  # fmt: skip
+    table["reference"] = table["part"].map(given)
+    return sim, status, table
+
+
+def test_a_reference_is_used_not_ignored_and_places_a_latent_limit(tmp_path):
+    """A full or partial reference column is the latent trait model's data: no 'not used'
+    line, a latent limit among its variables, and positions on each status's side."""
+    from bayes_rr.study.data import read_study
+    from bayes_rr.workflow.preflight import ignored_options
+
+    _, status, table = _with_partial_reference(2)
+    table.to_csv(tmp_path / "partial.csv", index=False)
+    full = table.assign(reference=table["part"].map(dict(zip(
+        sorted(set(table["part"]), key=lambda p: int(p[1:])), status, strict=True))))  # fmt: skip
+    full.to_csv(tmp_path / "full.csv", index=False)
+    spec = load_spec("latent-trait")
+    for name in ("partial.csv", "full.csv"):
+        study = read_study(str(tmp_path / name))
+        assert ignored_options(study, spec) == [], name
+        model = latent_trait.build(spec, study)
+        assert "latent_limit" in model.named_vars, name
+        wanted = model.replace_rvs_by_values([model["part_position"], model["latent_limit"]])
+        outputs = model.compile_fn(wanted, inputs=model.value_vars, on_unused_input="ignore")
+        shapes = model.eval_rv_shapes()
+        values, limit = outputs({v.name: np.full(shapes[v.name], 0.1) for v in model.value_vars})
+        known = latent_trait.reference_status(study)
+        assert np.all(values[known == 1] > limit) and np.all(values[known == 0] < limit), name
+    assert ("part_unknown" in latent_trait.build(spec, read_study(str(tmp_path / "partial.csv")))
+            .coords)  # fmt: skip
+
+
+@pytest.mark.slow
+def test_a_random_third_of_references_recovers_the_study_rates(tmp_path):
+    """Continuous property, 60 parts x 4 appraisers x 3 trials, a random third of the
+    parts given their true status (position above 0.3): each appraiser's study-scope
+    false reject and false accept rates (the mean of the true call probabilities over
+    the study's good and bad parts) lie in their 95% intervals, and so does the limit."""
+    sim, status, table = _with_partial_reference(5)
+    table.to_csv(tmp_path / "study.csv", index=False)
+    out = tmp_path / "fit"
+    result = runner.invoke(app, ["fit", str(tmp_path / "study.csv"), "--model", "latent-trait",
+                                 "--out", str(out), "--seed", "1", "--quiet"])  # fmt: skip
+    assert result.exit_code == 0, result.output
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["diagnostics"]["ok"], summary["diagnostics"]
+    rows = {(r["key"], r["appraiser"]): r for r in summary["estimands"]
+            if r["scope"] == "study"}  # fmt: skip
+    truth = {"false_reject_rate": sim.p[status == 0].mean(axis=0),
+             "false_accept_rate": (1 - sim.p[status == 1]).mean(axis=0)}  # fmt: skip
+    for j, name in enumerate(summary["design"]["appraiser_names"]):
+        for key, values in truth.items():
+            row = rows[(key, name)]
+            assert row["lower"] <= values[j] <= row["upper"], (key, name, values[j], row)
+    limit = rows[("latent_limit", None)]
+    assert limit["lower"] <= 0.3 <= limit["upper"]

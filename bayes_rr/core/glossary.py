@@ -80,6 +80,11 @@ GLOSSARY: dict[str, tuple[str, str]] = {
         "the spread of the thresholds over the typical transition width: how far apart "
         "appraisers place their thresholds, in units of their zone of unreliable calls",
     ),
+    "latent_limit": (
+        "limit on the latent scale",
+        "the position that separates good parts from bad ones, placed by the parts whose "
+        "reference status is known, in sds of the parts' positions",
+    ),
     "part_position": (
         "part position",
         "the part's place on the latent scale of the judged property, in sds of the parts",

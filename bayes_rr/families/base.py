@@ -129,6 +129,9 @@ class Family:
     partial_reference: bool = False
     """Whether the family takes a reference given for some parts only (the others'
     status inferred)."""
+    full_reference: bool = False
+    """Whether the family takes a reference status for every part without needing it
+    (a reference column is then not an ignored option)."""
     dependence_check: bool = False
     """Whether the predictive check's count of parts called both ways by everyone speaks
     against the family's assumption (calls independent given a part's class)."""

@@ -36,7 +36,9 @@ from bayes_rr.families.base import (
     term_hyper_parameters,
 )
 from bayes_rr.families.curves import link_cdf, ten_ninety_factor
+from bayes_rr.families.latent_class import UNKNOWN, known_status
 from bayes_rr.families.layout import coords
+from bayes_rr.families.status import called_mask, study_rates
 from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
 
 if TYPE_CHECKING:
@@ -139,8 +141,12 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
         # threshold, so the calls pin the offsets and the shift meets only the priors.
         # Same model: z_i = mean(t) + offset_i ~ N(0, 1).
         centre = t.mean()
-        offset = pm.Normal("part_offset", -centre, 1.0, dims="part")
-        z = pm.Deterministic("part_position", centre + offset, dims="part")
+        status = reference_status(study)
+        if status is None:
+            offset = pm.Normal("part_offset", -centre, 1.0, dims="part")
+            z = pm.Deterministic("part_position", centre + offset, dims="part")
+        else:
+            z = _positions_with_status(model, centre, study, status)
         log_width = pymc_prior("log_width_mean", spec.intercept_prior("log_width_prior"))
         w = pt.exp(log_width) * pt.ones(n_app)
         if spec.has("width"):
@@ -152,6 +158,59 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
         pm.Binomial("s", n=study.cells["n"].to_numpy(), p=pt.clip(p, P_FLOOR, 1 - P_FLOOR),
                     observed=observed_calls(study), dims="cell")  # fmt: skip
     return model
+
+
+LIMIT_PRIOR = prior("normal", mu=0.0, sigma=1.5)
+LIMIT_WHY = (
+    "normal(0, 1.5) on the limit between good and bad parts on the latent scale, in sds "
+    "of the parts' positions (share of bad parts in the population 1 - Phi(limit): "
+    "anything from about 0.002 to 0.998), when some parts have a reference status."
+)
+SUBSETS = {0: "part_good", 1: "part_bad", UNKNOWN: "part_unknown"}
+
+
+def reference_status(study: StudyData) -> np.ndarray | None:
+    """Each part's status (0 good, 1 bad, -1 unknown) from a reference column, full or
+    partial, or None without one."""
+    if study.reference is not None:
+        return study.reference.reindex(list(study.parts)).to_numpy(dtype=np.int64)
+    return known_status(study)
+
+
+def _positions_with_status(model, centre, study: StudyData, status: np.ndarray):
+    """Positions when some parts have a reference status: a bad part lies above the
+    limit c on the latent scale and a good one below (the reference is taken as exact).
+
+    z_i = c + softplus(r_i) for a bad part, c - softplus(r_i) for a good one, with the
+    density N(z_i; 0, 1) times the Jacobian sigmoid(r_i): the parts' N(0, 1) restricted
+    to their side, so the statuses inform c (P(bad) = 1 - Phi(c)). The limit is sampled
+    as an offset from the appraisers' mean threshold, as the unknown parts' positions
+    are (c ~ N(0, 1.5) either way).
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    with model:
+        mu, sigma = LIMIT_PRIOR.kwargs["mu"], LIMIT_PRIOR.kwargs["sigma"]
+        limit_offset = pm.Normal("latent_limit_offset", mu - centre, sigma)
+        limit = pm.Deterministic("latent_limit", centre + limit_offset)
+        z = pt.zeros(len(study.parts))
+        unknown = np.flatnonzero(status == UNKNOWN)
+        if unknown.size:
+            model.add_coord("part_unknown", [study.parts[i] for i in unknown])
+            offset = pm.Normal("part_offset", -centre, 1.0, dims="part_unknown")
+            z = pt.set_subtensor(z[unknown], centre + offset)
+        for side, sign in ((1, 1.0), (0, -1.0)):
+            index = np.flatnonzero(status == side)
+            if not index.size:
+                continue
+            model.add_coord(SUBSETS[side], [study.parts[i] for i in index])
+            raw = pm.Flat(f"position_{SUBSETS[side]}", dims=SUBSETS[side])
+            position = limit + sign * pt.softplus(raw)
+            pm.Potential(f"side_{SUBSETS[side]}",
+                         (-0.5 * position**2 + -pt.softplus(-raw)).sum())  # fmt: skip
+            z = pt.set_subtensor(z[index], position)
+        return pm.Deterministic("part_position", z, dims="part")
 
 
 def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, draws: int):
@@ -173,6 +232,8 @@ def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, dra
         out["sigma_width"] = ((), spread)
     out["log_width_mean"] = ((), log_width)
     out["curve_scale"] = (("appraiser",), np.exp(w_log))
+    if reference_status(study) is not None:
+        out["latent_limit"] = ((), forward.draw(LIMIT_PRIOR, rng, (draws,)))
     return out
 
 
@@ -208,8 +269,27 @@ def latent(posterior: xr.Dataset, spec, study: StudyData, rng=None) -> LatentDra
         ("population", "system", "transition_width"): (typical, None),
         ("population", "system", "spread_to_width"): (spread / typical, None),
     }
+    if "latent_limit" in posterior:
+        extra.update(_wrong_calls(posterior, p, study))
     return LatentDraws(p, {}, log_lik, extra,
                        part_log_lik=part_log_likelihood(posterior, spec.link, study))  # fmt: skip
+
+
+def _wrong_calls(posterior: xr.Dataset, p: np.ndarray, study: StudyData) -> dict:
+    """With a reference for some parts: each part is bad when its position lies above the
+    latent limit (per draw; a part with a reference lies on its side), and the study-scope
+    rates follow as for the other wrong-call models."""
+    from scipy.special import ndtr
+
+    limit = draws_of(posterior, "latent_limit")
+    bad = (draws_of(posterior, "part_position") > limit[:, None]).astype(float)
+    rates = study_rates(p, p, bad, called_mask(study))
+    out = {("study", level, key): (values, "appraiser" if level == "appraiser" else None)
+           for level, keys in rates.items() for key, values in keys.items()}  # fmt: skip
+    out[("study", "system", "latent_limit")] = (limit, None)
+    out[("study", "study", "reject_prevalence")] = (bad.mean(axis=1), None)
+    out[("population", "study", "reject_prevalence")] = (1.0 - ndtr(limit), None)
+    return out
 
 
 POSITION_GRID = np.linspace(-7.0, 7.0, 701)
@@ -280,6 +360,8 @@ FAMILY = Family(
     identification_note=IDENTIFICATION_NOTE,
     simulated=True,
     simulated_parts="positions",
+    partial_reference=True,
+    full_reference=True,
     default_plan_target="study__study__reproducibility_variance",
     mode_advice=(
         "a more informative prior on the typical threshold or width, or a model without "

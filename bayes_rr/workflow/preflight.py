@@ -151,16 +151,17 @@ def ignored_options(study: StudyData, spec, production=None) -> list[str]:
             f"the measured reference values are not used by the {spec.name} model: only "
             "call-curve uses them"
         )
-    if study.reference is not None and "reference" not in info.needs:
+    if (study.reference is not None and "reference" not in info.needs
+            and not family_of(spec).full_reference):  # fmt: skip
         out.append(
             f"the reference status column is not used by the {spec.name} model: only "
-            "reference-logit takes the status of each part as known"
+            "reference-logit and latent-trait take the status of each part as known"
         )
     partial = getattr(study, "partial_status", None)
     if partial is not None and not family_of(spec).partial_reference:
         out.append(
             f"the reference statuses of {int(partial.notna().sum())} parts are not used by "
-            f"the {spec.name} model: only latent-class takes a partial reference"
+            f"the {spec.name} model: only latent-class and latent-trait take a partial reference"
         )
     strata = production is not None and getattr(production, "strata", None) is not None
     if study.stratum is not None and not strata:
