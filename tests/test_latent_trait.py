@@ -265,3 +265,6 @@ def test_a_random_third_of_references_recovers_the_study_rates(tmp_path):
             assert row["lower"] <= values[j] <= row["upper"], (key, name, values[j], row)
     limit = rows[("latent_limit", None)]
     assert limit["lower"] <= 0.3 <= limit["upper"]
+    report = runner.invoke(app, ["report", str(out)])  # reads the fit folder back
+    assert report.exit_code == 0, report.output
+    assert "false reject rate" in (out / "report.html").read_text()

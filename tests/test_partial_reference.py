@@ -47,6 +47,20 @@ def test_a_partial_reference_is_read_and_counted(tmp_path):
     assert full.sha256 != study.sha256 and full.partial_status is None
 
 
+def test_a_partial_reference_survives_the_fit_folder(tmp_path):
+    """calls.csv keeps the unknown statuses empty, so a fit folder of a partly referenced
+    study reads back with the same data hash (it was refused as changed before)."""
+    from bayes_rr.io.fit_folder import calls_table
+    from bayes_rr.study.data import study_from_frame
+
+    study = read_study(write(tmp_path, "s.csv", _study_text({"P1": "pass", "P5": "fail"})))
+    calls_table(study).to_csv(tmp_path / "calls.csv", index=False)
+    frame = pd.read_csv(tmp_path / "calls.csv", dtype=str, keep_default_na=False)
+    back = study_from_frame(frame, source="calls.csv")
+    assert back.sha256 == study.sha256
+    pd.testing.assert_series_equal(back.partial_status, study.partial_status)
+
+
 def test_known_parts_of_one_status_only_are_refused(tmp_path):
     path = write(tmp_path, "one.csv", _study_text({"P1": "pass", "P2": "pass"}))
     result = runner.invoke(app, ["describe", str(path)])

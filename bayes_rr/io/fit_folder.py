@@ -250,6 +250,11 @@ def calls_table(study) -> pd.DataFrame:
     table = study.calls.copy()
     if study.reference is not None:
         table["reference"] = table["part"].map(study.reference).astype(int)
+    partial = getattr(study, "partial_status", None)
+    if partial is not None:
+        # an empty cell is an unknown status, as the reader takes it
+        known = partial.dropna().astype(int).astype(str)
+        table["reference"] = table["part"].map(known).fillna("")
     if study.reference_value is not None:
         # repr keeps every digit, so the data hash matches when the folder is read back
         table["reference_value"] = table["part"].map(study.reference_value).map(repr)
