@@ -153,9 +153,9 @@ def partial_note(status: pd.Series) -> str:
     known = int(status.notna().sum())
     return (
         f"reference status given for {known} of {len(status)} parts; the others' status "
-        "is unknown and inferred from the calls (latent-class, latent-trait). Sound when the parts given "
-        "a reference were chosen at random, or by their calls alone (e.g. every part "
-        "someone rejected plus a random share of the rest); not when chosen by anything "
+        "is unknown and inferred from the calls (latent-class, latent-trait). Sound when "
+        "the parts given a reference were chosen at random, or by their calls alone (e.g. "
+        "every part someone rejected plus a random share of the rest); not when chosen by anything "
         "else the data do not hold"
     )
 
