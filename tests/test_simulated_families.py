@@ -217,3 +217,17 @@ def test_call_curve_is_calibrated_at_a_small_design(client, tmp_path):
     three_se = 3 * np.sqrt(0.9 * 0.1 / sims)
     for name in ("study__system__false_reject_rate", "study__system__false_accept_rate"):
         assert abs(rows[name]["coverage_90"] - 0.9) <= three_se, rows[name]
+
+
+def test_calibration_rows_are_named_in_words():
+    """The calibration table names results by their glossary name, level and scope (a raw
+    key broke across lines at 80 columns); parameters keep their model names."""
+    from bayes_rr.cli.simulation_commands import _calibration_label
+
+    assert _calibration_label("study__system__false_reject_rate") == (
+        "false reject rate, system (study)"
+    )
+    assert _calibration_label("population__study__reproducibility_variance") == (
+        "reproducibility variance V (population)"
+    )
+    assert _calibration_label("sigma_appraiser[accept]") == "sigma_appraiser[accept]"

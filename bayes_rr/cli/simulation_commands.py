@@ -225,11 +225,18 @@ def calibrate(
         title=f"Calibration of {document['spec_name']} on {parts} parts x "
         f"{appraisers} appraisers x {trials} trials ({document['sims']} studies)"
     )
-    for col in ("quantity", "rank uniformity p", "50% coverage", "90% coverage", "in band"):
-        table.add_column(col, justify="left" if col == "quantity" else "right")
-    for row in document["parameters"]:
+    labels = [_calibration_label(row["name"]) for row in document["parameters"]]
+    table.caption = (
+        "ranks p: uniformity of the truth's rank among the draws (Kolmogorov-Smirnov); "
+        "50%/90% held: share of studies whose interval held the truth; in band: the rank "
+        "ECDF inside its simultaneous 95% band"
+    )
+    table.add_column("quantity")
+    for col in ("ranks p", "50% held", "90% held", "in band"):
+        table.add_column(col, justify="right", no_wrap=True)
+    for row, label in zip(document["parameters"], labels, strict=True):
         table.add_row(
-            row["name"],
+            label,
             f"{row['rank_uniformity_p']:.3f}",
             f"{row['coverage_50']:.0%}",
             f"{row['coverage_90']:.0%}",
@@ -241,6 +248,18 @@ def calibrate(
     out.print(
         f"calibration written to {out_dir / 'calibration.json'} (figure: calibration_ranks.png)"
     )
+
+
+def _calibration_label(name: str) -> str:
+    """A result key in words ('false reject rate, system (study)'); a parameter as is."""
+    from bayes_rr.core import glossary
+
+    parts = name.split("__")
+    if len(parts) != 3:
+        return name
+    scope, level, key = parts
+    where = "" if level == "study" else f", {level}"
+    return f"{glossary.name(key)}{where} ({scope})"
 
 
 @handles_errors
