@@ -16,7 +16,11 @@ from scipy import stats
 from bayes_rr.checks.predictive import prior_predictive
 from bayes_rr.priors.prior_draws import draw_prior
 from bayes_rr.priors.spec import load_spec
-from bayes_rr.simulation.known_truth import simulate_call_curve, simulate_status_logit
+from bayes_rr.simulation.known_truth import (
+    simulate_call_curve,
+    simulate_latent_trait,
+    simulate_status_logit,
+)
 from bayes_rr.study.data import build_study
 
 DRAWS = 3000
@@ -34,7 +38,9 @@ def _studies(small_sim):
         "reference-logit": status,
         "latent-class": status,
         "call-curve": two_sided,
-        "latent-trait": small_sim.study,
+        # without a reference: with one, the known parts' positions are sampled from a
+        # flat base measure that has no forward draws (their side is data, not prior)
+        "latent-trait": simulate_latent_trait(16, 3, 2, seed=4).study,
     }
 
 
