@@ -117,7 +117,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
     import pymc as pm
     import pytensor.tensor as pt
 
-    from bayes_rr.families.pymc_parts import observed_calls, pymc_prior
+    from bayes_rr.families.pymc_parts import appraiser_curve_scales, observed_calls, pymc_prior
 
     design = curve_design(study, spec.name)
     sides, x, s = design["sides"], design["x"], design["scale"]
@@ -138,12 +138,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             t_std = pt.repeat(t_std, len(study.appraisers), axis=0)
         pm.Deterministic("effective_limit", limits[None, :] + s * t_std,
                          dims=("appraiser", "side"))  # fmt: skip
-        log_width = pymc_prior("log_width_mean", spec.intercept_prior("log_width_prior"))
-        w_std = pt.exp(log_width) * pt.ones(len(study.appraisers))
-        if spec.has("width"):
-            width_spread = pymc_prior("sigma_width", spec.term("width").prior)
-            u = pm.Normal("width_z", 0.0, 1.0, dims="appraiser")
-            w_std = pt.exp(log_width + width_spread * u)
+        w_std = appraiser_curve_scales(spec, len(study.appraisers))
         pm.Deterministic(CURVE_SCALE, s * w_std, dims="appraiser")
         # standardised distance of each cell's part from each limit
         distance = (x[part][:, None] - limits[None, :]) / s
@@ -168,14 +163,9 @@ def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, dra
         t_std = t_std + spread[:, None, None] * rng.standard_normal((draws, n_app, n_side))
         out["sigma_limit"] = ((), spread)
     out["effective_limit"] = (("appraiser", "side"), limits + s * t_std)
-    log_width = forward.draw(spec.intercept_prior("log_width_prior"), rng, (draws,))
-    w_log = np.broadcast_to(log_width[:, None], (draws, n_app))
-    if spec.has("width"):
-        spread = forward.draw(spec.term("width").prior, rng, (draws,))
-        w_log = w_log + spread[:, None] * rng.standard_normal((draws, n_app))
-        out["sigma_width"] = ((), spread)
-    out["log_width_mean"] = ((), log_width)
-    out[CURVE_SCALE] = (("appraiser",), s * np.exp(w_log))
+    drawn, scales = forward.appraiser_curve_scales(spec, rng, draws, n_app)
+    out.update(drawn)
+    out[CURVE_SCALE] = (("appraiser",), s * scales)
     return out
 
 

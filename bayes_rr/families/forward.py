@@ -104,3 +104,18 @@ def correlated_appraiser_effects(
     accept = scales[:, :1] * z[:, :, 0]
     reject = scales[:, 1:] * (rho[:, None] * z[:, :, 0] + np.sqrt(1 - rho**2)[:, None] * z[:, :, 1])
     return np.stack([accept, reject], axis=2)
+
+
+def appraiser_curve_scales(
+    spec: ModelSpec, rng, draws: int, appraisers: int
+) -> tuple[dict, np.ndarray]:
+    """Forward draws of ``pymc_parts.appraiser_curve_scales``: the variables drawn and the
+    scales (draws, appraiser)."""
+    log_width = draw(spec.intercept_prior("log_width_prior"), rng, (draws,))
+    w_log = np.broadcast_to(log_width[:, None], (draws, appraisers))
+    out = {"log_width_mean": ((), log_width)}
+    if spec.has("width"):
+        spread = draw(spec.term("width").prior, rng, (draws,))
+        w_log = w_log + spread[:, None] * rng.standard_normal((draws, appraisers))
+        out["sigma_width"] = ((), spread)
+    return out, np.exp(w_log)

@@ -35,6 +35,7 @@ from bayes_rr.families.base import (
     optional_draws,
     term_hyper_parameters,
 )
+from bayes_rr.families.call_curve import WIDTH_TERM
 from bayes_rr.families.curves import link_cdf, ten_ninety_factor
 from bayes_rr.families.latent_class import UNKNOWN, known_status
 from bayes_rr.families.layout import coords
@@ -53,13 +54,6 @@ THRESHOLD_TERM = TermInfo(
     prior("half_normal", sigma=0.5),
     "half_normal(0.5) on the spread of the appraisers' thresholds, in sds of the parts' "
     "positions: appraisers rarely place their threshold a whole part-population sd apart.",
-)
-WIDTH_TERM = TermInfo(
-    "width",
-    "group",
-    prior("half_normal", sigma=0.5),
-    "half_normal(0.5) on the spread of the appraisers' log curve scales: one appraiser's "
-    "zone of inconsistent calls may be a few times another's.",
 )
 TRAIT_INTERCEPTS = {
     "threshold_prior": prior("normal", mu=0.0, sigma=1.0),
@@ -120,7 +114,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
     import pytensor.tensor as pt
 
     from bayes_rr.families.call_curve import link_cdf as pt_link_cdf
-    from bayes_rr.families.pymc_parts import observed_calls, pymc_prior
+    from bayes_rr.families.pymc_parts import appraiser_curve_scales, observed_calls, pymc_prior
 
     problem = identification_problem(study)
     if problem:
@@ -147,13 +141,7 @@ def build(spec: ModelSpec, study: StudyData) -> pm.Model:
             z = pm.Deterministic("part_position", centre + offset, dims="part")
         else:
             z = _positions_with_status(model, centre, study, status)
-        log_width = pymc_prior("log_width_mean", spec.intercept_prior("log_width_prior"))
-        w = pt.exp(log_width) * pt.ones(n_app)
-        if spec.has("width"):
-            width_spread = pymc_prior("sigma_width", spec.term("width").prior)
-            u = pm.Normal("width_z", 0.0, 1.0, dims="appraiser")
-            w = pt.exp(log_width + width_spread * u)
-        w = pm.Deterministic("curve_scale", w, dims="appraiser")
+        w = pm.Deterministic("curve_scale", appraiser_curve_scales(spec, n_app), dims="appraiser")
         p = pt_link_cdf(spec.link, (z[part] - t[app]) / w[app])
         pm.Binomial("s", n=study.cells["n"].to_numpy(), p=pt.clip(p, P_FLOOR, 1 - P_FLOOR),
                     observed=observed_calls(study), dims="cell")  # fmt: skip
@@ -224,14 +212,9 @@ def prior_draws(spec: ModelSpec, study: StudyData, rng: np.random.Generator, dra
         t = t + spread[:, None] * rng.standard_normal((draws, n_app))
         out["sigma_threshold"] = ((), spread)
     out["threshold"] = (("appraiser",), np.array(t))
-    log_width = forward.draw(spec.intercept_prior("log_width_prior"), rng, (draws,))
-    w_log = np.broadcast_to(log_width[:, None], (draws, n_app))
-    if spec.has("width"):
-        spread = forward.draw(spec.term("width").prior, rng, (draws,))
-        w_log = w_log + spread[:, None] * rng.standard_normal((draws, n_app))
-        out["sigma_width"] = ((), spread)
-    out["log_width_mean"] = ((), log_width)
-    out["curve_scale"] = (("appraiser",), np.exp(w_log))
+    drawn, scales = forward.appraiser_curve_scales(spec, rng, draws, n_app)
+    out.update(drawn)
+    out["curve_scale"] = (("appraiser",), scales)
     if reference_status(study) is not None:
         out["latent_limit"] = ((), forward.draw(LIMIT_PRIOR, rng, (draws,)))
     return out

@@ -168,3 +168,17 @@ def add_earlier_study(model: pm.Model, spec: ModelSpec) -> None:
             pm.Potential(
                 f"earlier_{label}", (weight * -0.5 * ((u - factor.mu) / factor.sigma) ** 2).sum()
             )
+
+
+def appraiser_curve_scales(spec: ModelSpec, appraisers: int):
+    """exp(omega + sigma_width v_j) per appraiser, in the curve's own units (call curve,
+    latent trait): ``log_width_mean``, and ``sigma_width`` with ``width_z`` when the spec
+    has the width term."""
+    import pytensor.tensor as pt
+
+    log_width = pymc_prior("log_width_mean", spec.intercept_prior("log_width_prior"))
+    if not spec.has("width"):
+        return pt.exp(log_width) * pt.ones(appraisers)
+    spread = pymc_prior("sigma_width", spec.term("width").prior)
+    u = pm.Normal("width_z", 0.0, 1.0, dims="appraiser")
+    return pt.exp(log_width + spread * u)
