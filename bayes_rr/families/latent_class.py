@@ -329,6 +329,14 @@ def weak_identification(estimands: xr.Dataset, prob: float = 0.95) -> str | None
     return None
 
 
+def pattern_frequencies(study: StudyData) -> tuple[int, int, int]:
+    """Trials (at most), appraisers, and the free frequencies of a part's call pattern:
+    (T + 1)^J patterns of per-appraiser reject counts sum to one."""
+    trials = int(study.cells["n"].max())
+    count = len(study.appraisers)
+    return trials, count, (trials + 1) ** count - 1
+
+
 def identification_problem(study: StudyData) -> str | None:
     """Why a two-class latent model cannot be identified from this design, or None.
 
@@ -336,9 +344,7 @@ def identification_problem(study: StudyData) -> str | None:
     T trials and J appraisers, so (T + 1)^J - 1 free frequencies must cover the 2J + 1
     parameters of the basic model (two rates per appraiser and the prevalence).
     """
-    trials = int(study.cells["n"].max())
-    count = len(study.appraisers)
-    free = (trials + 1) ** count - 1
+    trials, count, free = pattern_frequencies(study)
     needed = 2 * count + 1
     if free < needed:
         return (

@@ -37,7 +37,7 @@ from bayes_rr.families.base import (
 )
 from bayes_rr.families.call_curve import WIDTH_TERM
 from bayes_rr.families.curves import link_cdf, ten_ninety_factor
-from bayes_rr.families.latent_class import UNKNOWN, known_status
+from bayes_rr.families.latent_class import UNKNOWN, known_status, pattern_frequencies
 from bayes_rr.families.layout import coords
 from bayes_rr.families.status import called_mask, study_rates
 from bayes_rr.families.terms import FamilyInfo, TermInfo, prior
@@ -94,9 +94,7 @@ def identification_problem(study: StudyData) -> str | None:
     (T + 1)^J - 1 free frequencies must cover the 2J thresholds and widths (the parts'
     population is fixed).
     """
-    trials = int(study.cells["n"].max())
-    count = len(study.appraisers)
-    free = (trials + 1) ** count - 1
+    trials, count, free = pattern_frequencies(study)
     needed = 2 * count
     if free < needed:
         return (
