@@ -35,7 +35,7 @@ from bayes_rr.families.base import (
     optional_draws,
     term_hyper_parameters,
 )
-from bayes_rr.families.call_curve import WIDTH_TERM
+from bayes_rr.families.call_curve import LINKS, WIDTH_TERM
 from bayes_rr.families.curves import link_cdf, ten_ninety_factor
 from bayes_rr.families.latent_class import UNKNOWN, known_status, pattern_frequencies
 from bayes_rr.families.layout import coords
@@ -65,8 +65,6 @@ TRAIT_INTERCEPTS_WHY = (
     "normal(-1.5, 1) on the log of the typical curve scale w (median 0.22 sd, 95% range "
     "0.03 to 1.6 sd; the transition width, 10% to 90% reject, is 4.39 w for the logistic)."
 )
-LINKS = ("logistic", "probit")
-
 INFO = FamilyInfo(
     "latent_trait",
     "latent trait: each part's position z_i ~ N(0, 1) on the judged property's scale, "
