@@ -167,6 +167,8 @@ def print_fit(summary: dict, classical: dict | None) -> None:
         print_line(summary)
     if summary.get("wrong_calls"):
         print_rates(summary)
+    if summary.get("reference_comparison"):
+        print_reference_comparison(summary)
     if any(r["key"].startswith("effective_limit[") for r in summary["estimands"]):
         print_curves(summary)
     if any(r["key"] == "threshold" for r in summary["estimands"]):
@@ -441,6 +443,32 @@ def print_rates(summary: dict) -> None:
         if any(cell != "-" for cell in cells):  # a model may give no population rates
             table.add_row(label, *cells)
     out.print(table)
+
+
+def print_reference_comparison(summary: dict) -> None:
+    """The rates against the fallible reference beside those against the reference
+    taken as exact, and the parts whose reference the calls doubt."""
+    block = summary["reference_comparison"]
+    table = Table(title="Wrong-call rates: reference fallible vs taken as exact")
+    for column in ("rate", "appraiser", "fallible", "exact", "shift"):
+        table.add_column(column, justify="left" if column in ("rate", "appraiser") else "right")
+    for row in block["rows"]:
+        who = row["appraiser"] or ("a new appraiser" if row["scope"] == "population"
+                                   else "all appraisers")  # fmt: skip
+        shift = "-" if row["shift"] is None else f"{100 * row['shift']:+.1f} pt"
+        rate = row["key"].replace("_rate", "").replace("_", " ")
+        fallible, exact = _stacked_percent(row["fallible"]), _stacked_percent(row["exact"])
+        table.add_row(rate, who, fallible, exact, shift)
+    out.print(table)
+    out.print("shift: fallible minus exact, in percentage points")
+    for sentence in block["sentences"]:
+        out.print(f"reference: {sentence}")
+
+
+def _stacked_percent(figure: dict | None) -> str:
+    if figure is None:
+        return "-"
+    return f"{figure['mean']:.1%}\n{figure['lower']:.1%}-{figure['upper']:.1%}"
 
 
 def _short_number(x: float) -> str:

@@ -85,6 +85,31 @@ GLOSSARY: dict[str, tuple[str, str]] = {
         "the position that separates good parts from bad ones, placed by the parts whose "
         "reference status is known, in sds of the parts' positions",
     ),
+    "reject_prevalence": (
+        "share of bad parts",
+        "the share of bad parts: among the study's parts (study) or among parts like them "
+        "(population), when the status is not known for every part",
+    ),
+    "reject_probability": (
+        "probability the part is bad",
+        "the posterior probability that the part's true status is bad",
+    ),
+    "reference_wrong_probability": (
+        "probability the reference is wrong",
+        "the posterior probability that the part's reference status is not its true "
+        "status (a fallible reference: the reference's stated error rates and every "
+        "appraiser's calls weighed together)",
+    ),
+    "reference_false_reject_rate": (
+        "reference's false reject rate",
+        "the probability that the reference calls a good part bad (its stated prior "
+        "updated by the calls)",
+    ),
+    "reference_false_accept_rate": (
+        "reference's false accept rate",
+        "the probability that the reference calls a bad part good (its stated prior "
+        "updated by the calls)",
+    ),
     "part_position": (
         "part position",
         "the part's place on the latent scale of the judged property, in sds of the parts",

@@ -22,7 +22,7 @@ from scipy.special import expit, gammaln, log_expit, logsumexp
 from bayes_rr.core.errors import DataError
 from bayes_rr.families import forward
 from bayes_rr.families.base import Family, LatentDraws, cell_index, draws_of
-from bayes_rr.families.layout import reference_statuses
+from bayes_rr.families.layout import call_grids, reference_statuses
 from bayes_rr.families.status import (
     PER_STATUS_SCALES,
     STATEMENTS,
@@ -156,11 +156,7 @@ def known_status(study: StudyData) -> np.ndarray | None:
 
 
 def call_patterns(study: StudyData) -> Patterns:
-    cells = study.cells
-    n = np.zeros((len(study.parts), len(study.appraisers)), dtype=np.int64)
-    s = np.zeros_like(n)
-    n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
-    s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
+    n, s = call_grids(study)
     status = known_status(study)
     # parts with a known status are their own patterns' members only with that status
     key = np.concatenate([n, s] + ([] if status is None else [status[:, None]]), axis=1)

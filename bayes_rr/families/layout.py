@@ -27,6 +27,16 @@ def coords(study: StudyData) -> dict[str, list[str]]:
     }
 
 
+def call_grids(study: StudyData) -> tuple[np.ndarray, np.ndarray]:
+    """(part, appraiser) grids of trials and reject calls (0 where a cell is empty)."""
+    cells = study.cells
+    n = np.zeros((len(study.parts), len(study.appraisers)), dtype=np.int64)
+    s = np.zeros_like(n)
+    n[cells["part_index"], cells["appraiser_index"]] = cells["n"]
+    s[cells["part_index"], cells["appraiser_index"]] = cells["s"]
+    return n, s
+
+
 def curve_design(study: StudyData, spec_name: str = "call-curve") -> dict:
     """The limits (name, value, direction), the reference values and their scale."""
     if study.reference_value is None:

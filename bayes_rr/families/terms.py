@@ -47,6 +47,8 @@ class FamilyInfo:
     likewise for ``[concentration]``; ``links``: the ``[curve] link`` choices (empty:
     no curve). ``needs``: what the data must hold (``"reference"``: a status per part;
     ``"reference_value"``: a measured value per part and a specification limit).
+    ``reference_accuracy``: whether the spec may state the reference's own error rates
+    (``[reference_accuracy]``: the reference as a fallible rater).
     """
 
     name: str
@@ -58,6 +60,7 @@ class FamilyInfo:
     concentration_prior: Prior | None = None
     links: tuple[str, ...] = ()
     needs: tuple[str, ...] = ()
+    reference_accuracy: bool = False
 
     @property
     def has_prevalence(self) -> bool:

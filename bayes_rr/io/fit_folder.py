@@ -108,6 +108,7 @@ def summary_document(result) -> dict:
         "comparisons": result.comparisons,
         "prior_sensitivity": result.prior_sensitivity,
         "prior_from": result.prior_from,
+        "reference_comparison": jsonable(getattr(result, "reference_comparison", None)),
         **_production_blocks(result, diagnostics["ok"]),
         "limitations": [lim.as_dict() for lim in limitations],
         "ignored_options": list(getattr(checked, "ignored_options", ())),

@@ -33,6 +33,11 @@ repeat_disagreement  terms.part.           E[2 p (1 - p)], logit p = logit(at) +
                      scale_prior           a ~ N(0, sigma): how often two calls of one part
                                            by one appraiser disagree, averaged over parts;
                                            wider part spread, fewer borderline parts
+reference_false_     reference_accuracy.   the rate itself: P(reference calls bad | good
+reject_rate          false_reject_prior    part), a beta prior (reference-logit: the
+                                           reference becomes a fallible rater)
+reference_false_     reference_accuracy.   P(reference calls good | bad part), a beta
+accept_rate          false_accept_prior    prior, likewise
 ==================== ===================== =============================================
 
 Rates map to a normal prior on the logit scale; scales to a gamma prior. The
@@ -100,6 +105,10 @@ KINDS = {
                                  "how far a typical appraiser's rate lies from the average"),
     "repeat_disagreement": Kind(("terms", "part", "scale_prior"),
                                 "how often two calls of a part by one appraiser disagree"),
+    "reference_false_reject_rate": Kind(("reference_accuracy", "false_reject_prior"),
+                                        "how often the reference calls a good part bad"),
+    "reference_false_accept_rate": Kind(("reference_accuracy", "false_accept_prior"),
+                                        "how often the reference calls a bad part good"),
 }  # fmt: skip
 
 
@@ -163,6 +172,37 @@ def gamma_through(q_med: float, q_other: float, level_other: float) -> Prior:
     return make_prior({"distribution": "gamma", "alpha": alpha, "beta": beta}, "prior")
 
 
+def beta_through(q_med: float, q_other: float, level_other: float) -> Prior:
+    """The beta prior with median ``q_med`` and ``level_other`` quantile ``q_other``: on
+    the logit scale the two quantiles fix a location and a spread; the beta's
+    concentration is found so both quantiles hold (one equation in its log, with the
+    mean set by the median)."""
+
+    def quantiles(log_total: float, mean: float) -> tuple[float, float]:
+        total = math.exp(log_total)
+        dist = stats.beta(mean * total, (1 - mean) * total)
+        return float(dist.ppf(0.5)), float(dist.ppf(level_other))
+
+    def fit(log_total: float) -> tuple[float, float]:
+        # the mean that puts the median at q_med for this concentration
+        mean = optimize.brentq(lambda m: quantiles(log_total, m)[0] - q_med, 1e-9, 1 - 1e-9,
+                               xtol=1e-14)  # fmt: skip
+        return mean, quantiles(log_total, mean)[1] - q_other
+
+    low, high = math.log(2e-3), math.log(2e4)
+    try:
+        log_total = optimize.brentq(lambda x: fit(x)[1], low, high, xtol=1e-12)
+    except ValueError:
+        raise SpecError(
+            f"no beta prior has median {q_med:.4g} and {level_other:.1%} quantile "
+            f"{q_other:.4g}: the typical value and the bound are too close or too far apart"
+        ) from None
+    mean = fit(log_total)[0]
+    total = math.exp(log_total)
+    return make_prior({"distribution": "beta", "alpha": mean * total,
+                       "beta": (1 - mean) * total}, "prior")  # fmt: skip
+
+
 def normal_through(m: float, q_other: float, level_other: float) -> Prior:
     sigma = abs(q_other - m) / abs(stats.norm.ppf(level_other))
     return make_prior({"distribution": "normal", "mu": m, "sigma": sigma}, "prior")
@@ -179,6 +219,8 @@ def prior_for(statement: Statement) -> Prior:
     if s.about == "false_accept_rate":
         # a larger accept rate on bad parts is a smaller mu_reject
         return normal_through(logit(1 - s.typical), logit(1 - s.bound), 1 - level)
+    if s.about.startswith("reference_"):
+        return beta_through(s.typical, s.bound, level)
     if s.about == "appraiser_difference":
         f = lambda sigma: float(appraiser_difference(sigma, s.at))  # noqa: E731
         return gamma_through(_invert(f, s.typical, f"{where}: typical"),
@@ -196,6 +238,8 @@ def implied(statement: Statement, prior: Prior, draws: int = 20_000, seed: int =
     s = statement
     if s.about in ("call_rate", "false_reject_rate"):
         quantity = expit(values)
+    elif s.about.startswith("reference_"):
+        quantity = values
     elif s.about == "false_accept_rate":
         quantity = 1 - expit(values)
     elif s.about == "appraiser_difference":
@@ -278,6 +322,13 @@ def parse_statements(text: str, source: str = "<statements>") -> tuple[str, str,
 
 
 def _set_prior(spec: ModelSpec, location: tuple[str, ...], prior: Prior) -> ModelSpec:
+    if location[0] == "reference_accuracy":
+        from bayes_rr.priors.spec import REFERENCE_PREVALENCE, ReferenceAccuracy
+
+        # a statement about one side leaves the other exact until stated
+        accuracy = spec.reference_accuracy or ReferenceAccuracy(0.0, 0.0, REFERENCE_PREVALENCE)
+        side = location[1].removesuffix("_prior")
+        return replace(spec, reference_accuracy=replace(accuracy, **{side: prior}))
     if location[0] == "intercept" and location[1] == "prior":
         return replace(spec, intercept=prior)
     if location[0] == "intercept":
@@ -375,6 +426,16 @@ def spec_toml(spec: ModelSpec, name: str | None = None) -> str:
         }
     if spec.prevalence is not None:
         table["prevalence"] = {"prior": _prior_table(spec.prevalence)}
+    if spec.reference_accuracy is not None:
+        accuracy = spec.reference_accuracy
+        block = {}
+        for side, rate in accuracy.rates():
+            if isinstance(rate, float):
+                block[side] = float(rate)
+            else:
+                block[f"{side}_prior"] = _prior_table(rate)
+        block["prevalence_prior"] = _prior_table(accuracy.prevalence)
+        table["reference_accuracy"] = block
     if family_of(spec).info.has_curve:
         table["curve"] = {"link": spec.link}
     sampler = spec.sampler

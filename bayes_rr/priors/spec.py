@@ -90,6 +90,38 @@ class EarlierStudy:
 
 
 @dataclass(frozen=True)
+class ReferenceAccuracy:
+    """The reference's own error rates (``[reference_accuracy]``): the reference is one
+    more rater, fallible, and each part's true status is unknown.
+
+    ``false_reject`` is P(reference calls bad | part good), ``false_accept`` is
+    P(reference calls good | part bad): a prior on (0, 1), or a fixed number in [0, 0.5)
+    (0: the reference is exact on that side). ``prevalence``: the prior on the share of
+    bad parts among the study's parts, which the model now needs.
+    """
+
+    false_reject: Prior | float
+    false_accept: Prior | float
+    prevalence: Prior
+
+    def rates(self) -> tuple[tuple[str, Prior | float], ...]:
+        return (("false_reject", self.false_reject), ("false_accept", self.false_accept))
+
+    @property
+    def exact(self) -> bool:
+        """Whether both rates are fixed at 0 (the reference taken as exact)."""
+        return self.false_reject == 0.0 and self.false_accept == 0.0
+
+
+REFERENCE_PREVALENCE = make_prior({"distribution": "beta", "alpha": 1.0, "beta": 1.0}, "prior")
+"""Default prior on the share of bad parts when the reference is fallible: uniform, as
+studies pick their share of bad parts on purpose."""
+HIGHEST_REFERENCE_ERROR = 0.5
+"""A reference wrong as often as right tells good from bad by nothing; above it, the
+labels good and bad would swap."""
+
+
+@dataclass(frozen=True)
 class ModelSpec:
     """A validated model specification."""
 
@@ -112,6 +144,9 @@ class ModelSpec:
     """Which data the model suits, in a sentence (shown by 'bayes-rr models')."""
     earlier: EarlierStudy | None = None
     """An earlier study carried in as prior (``[earlier_study]``), if any."""
+    reference_accuracy: ReferenceAccuracy | None = None
+    """The reference's stated error rates (``[reference_accuracy]``), or None when the
+    reference is taken as the truth."""
 
     @property
     def sha256(self) -> str:
@@ -145,6 +180,7 @@ TOP_KEYS = {
     "curve",
     "sampler",
     "earlier_study",
+    "reference_accuracy",
 }
 EARLIER_KEYS = {"weight", "fit", "data_sha256", "factor"}
 FACTOR_KEYS = {"parameter", "status", "scale", "mu", "sigma"}
@@ -177,6 +213,59 @@ def _prior(raw: object, where: str, source: str, support: str) -> Prior:
             f"support, but {where} needs a distribution on {support} values"
         )
     return prior
+
+
+def _reference_rate(table: dict, side: str, source: str) -> Prior | float:
+    """One error rate of ``[reference_accuracy]``: ``<side>_prior`` or a fixed ``<side>``."""
+    given = [key for key in (side, f"{side}_prior") if key in table]
+    if len(given) != 1:
+        raise SpecError(
+            f"{source}: [reference_accuracy] needs exactly one of {side!r} (a fixed rate, 0 "
+            f"for exact) or '{side}_prior' (a distribution on 0-1); found {given or 'neither'}"
+        )
+    where = f"reference_accuracy.{given[0]}"
+    if given[0] == side:
+        value = table[side]
+        ok = isinstance(value, int | float) and not isinstance(value, bool)
+        if not ok or not 0 <= value < HIGHEST_REFERENCE_ERROR:
+            raise SpecError(
+                f"{source}: {where} = {value!r}: expected a rate from 0 (exact) up to below "
+                f"{HIGHEST_REFERENCE_ERROR:g}; a reference wrong as often as right is no reference"
+            )
+        return float(value)
+    prior = _prior(table[given[0]], where, source, "unit")
+    median = float(prior.scipy().ppf(0.5))
+    if not median < HIGHEST_REFERENCE_ERROR:
+        raise SpecError(
+            f"{source}: {where} has median {median:.3g}: a reference's error rate must be "
+            f"typically below {HIGHEST_REFERENCE_ERROR:g}, or good and bad swap; check the "
+            "distribution's parameters"
+        )
+    return prior
+
+
+def _reference_accuracy(raw: dict, family: str, source: str) -> ReferenceAccuracy | None:
+    if "reference_accuracy" not in raw:
+        return None
+    if not FAMILIES[family].info.reference_accuracy:
+        takers = sorted(f for f, fam in FAMILIES.items() if fam.info.reference_accuracy)
+        raise SpecError(
+            f"{source}: [reference_accuracy] is for the {' or '.join(takers)} family, not "
+            f"{family!r}; remove it"
+        )
+    table = _table(raw, "reference_accuracy", source, "")
+    sides = ("false_reject", "false_accept")
+    allowed = {*sides, *(f"{side}_prior" for side in sides), "prevalence_prior"}
+    _check_keys(table, allowed, "[reference_accuracy]", source)
+    prevalence = REFERENCE_PREVALENCE
+    if "prevalence_prior" in table:
+        prevalence = _prior(table["prevalence_prior"], "reference_accuracy.prevalence_prior",
+                            source, "unit")  # fmt: skip
+    return ReferenceAccuracy(
+        _reference_rate(table, "false_reject", source),
+        _reference_rate(table, "false_accept", source),
+        prevalence,
+    )
 
 
 def _terms(raw: dict, family: str, source: str) -> tuple[TermSpec, ...]:
@@ -418,6 +507,7 @@ def parse_spec(text: str, source: str = "<spec>") -> ModelSpec:
         prevalence=prevalence,
         suits=suits.strip(),
         earlier=_earlier(raw, source),
+        reference_accuracy=_reference_accuracy(raw, family, source),
     )
     _check_earlier(spec)
     return spec

@@ -199,6 +199,38 @@ def _rates_table(summary: dict) -> str:
     )
 
 
+COMPARISON_COLUMNS = ["rate", "appraiser", "reference fallible", "reference exact", "shift"]
+
+
+def reference_table(summary: dict) -> str:
+    """With a fallible reference: each rate against it and against the reference taken as
+    exact, and the parts whose reference the calls doubt."""
+    block = summary.get("reference_comparison")
+    if not block:
+        return ""
+    body = []
+    for row in block["rows"]:
+        who = row["appraiser"] or ("a new appraiser (population)" if row["scope"] == "population"
+                                   else "the study's appraisers together")  # fmt: skip
+        shift = "-" if row["shift"] is None else f"{100 * row['shift']:+.1f} pt"
+        body.append([esc(glossary.name(row["key"])), esc(who), _percent_interval(row["fallible"]),
+                     _percent_interval(row["exact"]), shift])  # fmt: skip
+    doubtful = "".join(
+        f"<li>{esc(d['part'])}: {d['probability']:.0%}</li>" for d in block["doubtful_parts"]
+    )
+    return (
+        "<h3>The reference as a fallible rater</h3>"
+        "<p>The model takes the reference's stated error rates and each part's true status "
+        "as unknown. Beside each rate, the same model with the reference taken as exact: "
+        "the difference (shift, in percentage points) is what the reference's own errors "
+        "would have added to (or hidden from) the appraisers' rates.</p>"
+        + html_table(COMPARISON_COLUMNS, body, {2, 3, 4})
+        + "<ul>" + "".join(f"<li>{esc(s)}</li>" for s in block["sentences"]) + "</ul>"
+        + (f"<p>Parts whose reference is more likely wrong than right (posterior "
+           f"probability):</p><ul>{doubtful}</ul>" if doubtful else "")
+    )  # fmt: skip
+
+
 CURVE_COLUMNS = (("effective_limit", "effective limit"), ("bias", "bias (effective - limit)"))
 
 

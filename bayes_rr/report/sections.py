@@ -4,7 +4,13 @@ comparison, calibration, convergence, the model, cautions and provenance."""
 from __future__ import annotations
 
 from bayes_rr.core import glossary
-from bayes_rr.report.answer import _comparisons, _curve_table, _rates_table, threshold_table
+from bayes_rr.report.answer import (
+    _comparisons,
+    _curve_table,
+    _rates_table,
+    reference_table,
+    threshold_table,
+)
 from bayes_rr.report.blocks import (
     CAUTIONS,
     STUDY_KEYS,
@@ -293,7 +299,7 @@ def results_section(inputs: ReportInputs) -> str:
         items = [wrong["weak_identification"]] if wrong.get("weak_identification") else []
         items += list(wrong.get("readings", []))
         rates += ["<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>",
-                  _rates_table(summary)]  # fmt: skip
+                  _rates_table(summary), reference_table(summary)]  # fmt: skip
     rates.append(threshold_table(summary))
     if inputs.figures.get("call_curves") is not None:
         rates += [

@@ -112,6 +112,10 @@ def study_level(per_part: dict[str, np.ndarray], scope: str) -> dict[str, np.nda
     """Averages over the study's parts (last axis); shares as ratios of averages."""
     mean = {k: v.mean(axis=-1) for k, v in per_part.items() if not k.endswith("_share")}
     t, r, v = mean["rr_variance"], mean["repeatability_variance"], mean["reproducibility_variance"]
+    # a study whose every call is certain (a simulated truth can be) has no variance to
+    # share out: its shares are NaN, which summaries and calibration skip
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = {"reproducibility_share": v / t, "repeatability_share": r / t}
     out = {
         "call_rate": mean["call_rate"],
         "rr_variance": t,
@@ -120,8 +124,7 @@ def study_level(per_part: dict[str, np.ndarray], scope: str) -> dict[str, np.nda
         "rr_sd": np.sqrt(t),
         "repeatability_sd": np.sqrt(r),
         "reproducibility_sd": np.sqrt(np.clip(v, 0, None)),
-        "reproducibility_share": v / t,
-        "repeatability_share": r / t,
+        **shares,
         "repeat_disagreement": 2 * r,
     }
     if scope == "population":
@@ -213,7 +216,9 @@ def compute_estimands(
             put(scope, "part", key, values, "part")
         for key, values in study_level(per_part, scope).items():
             put(scope, "study", key, values, None)
-    if family_of(spec).appraiser_rows:
+    # a model that integrates the parts' effects out (latent class, a fallible reference)
+    # has no per-cell call probabilities to give these
+    if family_of(spec).appraiser_rows and latent.p_study is not None:
         p = latent.p_study
         q = 1 - p if latent.q_study is None else latent.q_study
         put("study", "appraiser", "call_rate", p.mean(axis=1), "appraiser")

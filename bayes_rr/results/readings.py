@@ -23,6 +23,11 @@ HYPER_PARAMETERS = (  # the posterior variables kept in full precision
     "sigma_limit",
     "log_width_mean",
     "sigma_width",
+    "threshold_mean",
+    "sigma_threshold",
+    "latent_limit",
+    "reference_false_reject",
+    "reference_false_accept",
 )
 
 WRONG_CALL_KEYS = frozenset({"false_reject_rate", "false_accept_rate"})

@@ -174,10 +174,15 @@ def simulate_status_logit(
     hide_reference: bool = False,
     missing_share: float = 0.0,
     appraiser_effect: np.ndarray | None = None,
+    reference_errors: tuple[float, float] = (0.0, 0.0),
     seed: int = 0,
 ) -> SimulatedStudy:
     """Simulate logit p_ij = mu_r(i) + a_i + b_j,r(i) + c_ij with parts of two statuses.
 
+    ``reference_errors`` (false reject, false accept) makes the study's reference
+    fallible: each good part's reference says bad with the first probability, each bad
+    part's says good with the second (``params["reference"]``; the rates stay against
+    the true status).
     ``hide_reference`` leaves the status out of the study (a latent class study).
     ``appraiser_effect`` (appraisers x 2) fixes the appraisers' effects instead of
     drawing them. ``params["rates"]`` holds the true study-scope rates: each
@@ -202,6 +207,11 @@ def simulate_status_logit(
     p = expit(eta)
     n = _trials(rng, n_parts, n_appraisers, n_trials, missing_share)
     s = rng.binomial(n, p)
+    said = status
+    if any(reference_errors):
+        flip = rng.random(n_parts) < np.where(status == 1, reference_errors[1],
+                                              reference_errors[0])  # fmt: skip
+        said = np.where(flip, 1 - status, status)
     good, bad = status == 0, status == 1
     frr = p[good].mean(axis=0)
     far = (1 - p[bad]).mean(axis=0)
@@ -211,12 +221,13 @@ def simulate_status_logit(
     }
     study = study_from_cells(
         _labels("P", n_parts), _labels("A", n_appraisers), n, s,
-        reference=None if hide_reference else status, source=f"simulated (seed {seed})", rng=rng,
+        reference=None if hide_reference else said, source=f"simulated (seed {seed})", rng=rng,
     )  # fmt: skip
     params = {
         "mu": mu, "sigma_part": sigma_part, "sigma_appraiser": sigma_appraiser,
         "correlation": correlation, "sigma_interaction": sigma_interaction, "status": status,
         "part_effect": a, "appraiser_effect": b, "rates": rates, "seed": seed,
+        "reference": said,
     }  # fmt: skip
     return SimulatedStudy(study, p, params)
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 import platform
 import sys
 import time
-from dataclasses import dataclass, replace
+from dataclasses import asdict, dataclass, replace
 from datetime import UTC, datetime
 from importlib import metadata
 
@@ -85,6 +85,10 @@ class FitResult:
     preflight: Preflight | None = None
     """Options and columns the model does not use, and warnings about the data against
     the model, found before sampling."""
+    reference_comparison: dict | None = None
+    """With a fallible reference: the rates against it and against the reference taken
+    as exact, and the parts whose reference the calls doubt
+    (results.reference_shift.reference_comparison)."""
 
 
 def package_versions() -> dict[str, str]:
@@ -149,6 +153,7 @@ def fit_study(
 
     _check_production(production, criteria, spec, study)
     checked = preflight(study, spec, production)
+    requested = settings
     stages = [settings]
     if two_stage and settings.draws > FIRST_STAGE_DRAWS:
         stages = [replace(settings, draws=FIRST_STAGE_DRAWS), settings]
@@ -209,6 +214,13 @@ def fit_study(
 
         criteria_rows = tuple(evaluate_criteria(criteria, estimands))
     timings["summaries_s"] += time.perf_counter() - t0
+    shift = None
+    accuracy = spec.reference_accuracy
+    if accuracy is not None and not accuracy.exact and diagnostics.ok:
+        t0 = time.perf_counter()
+        shift = _against_exact_reference(study, spec, requested, estimand_rows, prob,
+                                         interval, two_stage)  # fmt: skip
+        timings["exact_reference_fit_s"] = time.perf_counter() - t0
     provenance = {
         "started": started.isoformat(),
         "finished": datetime.now(UTC).isoformat(),
@@ -249,6 +261,27 @@ def fit_study(
         prior_from=prior_from,
         production=summary.production,
         preflight=checked,
+        reference_comparison=shift,
+    )
+
+
+EXACT_REFERENCE_MARK = "\n# compared with: the same model, the reference taken as exact\n"
+
+
+def _against_exact_reference(study, spec, settings, rows, prob, interval, two_stage) -> dict:
+    """The same model with the reference taken as the truth, fitted with the same
+    settings, and the rates of both side by side. The exact spec's text is marked so
+    that it never shares a compiled model with the fallible one."""
+    from bayes_rr.results.reference_shift import reference_comparison
+
+    exact_spec = replace(spec, reference_accuracy=None, text=spec.text + EXACT_REFERENCE_MARK)
+    exact = fit_study(study, exact_spec, settings, prob=prob, interval=interval,
+                      two_stage=two_stage)  # fmt: skip
+    return reference_comparison(
+        [asdict(r) for r in rows],
+        [asdict(r) for r in exact.estimand_rows],
+        exact.diagnostics.ok,
+        study.appraisers,
     )
 
 
