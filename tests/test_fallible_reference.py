@@ -218,9 +218,9 @@ def test_exact_accuracy_gives_the_reference_logit_rates_back():
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("seed", [3, 5, 8])
+@pytest.mark.parametrize("seed", [3, 5])
 def test_fallible_reference_recovers_rates_the_exact_reference_misses(seed):
-    """60 parts x 3 appraisers x 3 trials, 10% of the references wrong on each side
+    """Two seeds; 60 parts x 3 appraisers x 3 trials, 10% of the references wrong on each side
     (simulated with known truth): the fit that states the reference's error rates
     (beta(2, 18), median 0.09) holds the true system rates in its 95% intervals and finds
     the wrong references; the same data with the reference taken as exact give higher
@@ -253,3 +253,14 @@ def test_fallible_reference_recovers_rates_the_exact_reference_misses(seed):
     doubted = {d["part"] for d in comparison["doubtful_parts"]}
     assert doubted <= wrong  # no sound reference doubted
     assert len(doubted) >= len(wrong) // 2
+
+
+def test_plan_and_calibrate_refuse_a_fallible_reference_before_any_work(tmp_path):
+    spec = tmp_path / "fallible.toml"
+    spec.write_text(BASE + "\n[reference_accuracy]\nfalse_reject = 0.01\nfalse_accept = 0\n")
+    out = tmp_path / "cal"
+    result = runner.invoke(app, ["calibrate", "--out", str(out), "--model", str(spec),
+                                 "--parts", "20", "--sims", "10", "--quiet"])  # fmt: skip
+    assert result.exit_code == 2
+    assert "not simulated yet" in result.stderr and "Traceback" not in result.output
+    assert not out.exists()

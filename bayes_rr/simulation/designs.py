@@ -93,6 +93,12 @@ def check_simulated(spec: ModelSpec, part_mix: float | None) -> None:
             f"model {spec.name!r} (family {spec.family}): studies can be simulated for the "
             f"families {', '.join(simulated)} only; choose one of their models"
         )
+    if getattr(spec, "reference_accuracy", None) is not None:
+        raise SpecError(
+            f"model {spec.name!r} states the reference's error rates ([reference_accuracy]); "
+            "studies with a fallible reference are not simulated yet: plan or calibrate the "
+            "model without that table"
+        )
     if part_mix is not None and not 0 <= part_mix <= 1:
         raise SpecError(f"--part-mix {part_mix!r}: expected a share from 0 to 1")
     kind = family_of(spec).simulated_parts
