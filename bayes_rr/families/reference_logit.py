@@ -207,10 +207,10 @@ def _fallible_reference(spec: ModelSpec, study: StudyData, mu) -> None:
     likelihood of the pattern's calls with the part's effect a ~ N(0, sigma_part) and
     each cell's effect ~ N(0, sigma_interaction) integrated by quadrature (see
     ``PART_STEP`` and ``INTERACTION_NODES``; docs/statistics.md, family 3 with a fallible
-    reference). Sampled effects instead
-    left each doubtful part two modes (a good part called strictly, a bad part called
-    leniently): r_hat 1.11 and 116 s for 60 x 3 x 3 simulated. A fixed rate of 0 makes
-    the other status impossible for the parts it decides: the sum has one term there."""
+    reference). Sampled effects instead left each doubtful part two modes (a good part
+    called strictly, a bad part called leniently): r_hat 1.11 and 116 s for 60 x 3 x 3
+    simulated. A fixed rate of 0 makes the other status impossible for the parts it
+    decides: the sum has one term there."""
     import pymc as pm
     import pytensor.tensor as pt
 
