@@ -274,3 +274,32 @@ def test_a_random_third_of_references_recovers_the_study_rates(tmp_path):
     report = runner.invoke(app, ["report", str(out)])  # reads the fit folder back
     assert report.exit_code == 0, report.output
     assert "false reject rate" in (out / "report.html").read_text()
+
+
+def test_the_latent_limit_prior_is_power_scaled_with_the_others():
+    """The log prior that power-scaling raises holds every stated prior of a latent trait
+    fit with a reference, the latent limit's N(0, 1.5) included: at made-up draws it
+    equals the sum of scipy.stats log densities; without a latent limit (no reference)
+    that term is absent."""
+    import xarray as xr
+
+    from bayes_rr.priors.hyperpriors import log_prior
+
+    spec = load_spec("latent-trait")
+    rng = np.random.default_rng(3)
+    values = {
+        "threshold_mean": rng.normal(0, 1, (2, 5)),
+        "log_width_mean": rng.normal(-1.5, 1, (2, 5)),
+        "sigma_threshold": np.abs(rng.normal(0, 0.5, (2, 5))),
+        "sigma_width": np.abs(rng.normal(0, 0.5, (2, 5))),
+        "latent_limit": rng.normal(0, 1.5, (2, 5)),
+    }
+    posterior = xr.Dataset({k: (("chain", "draw"), v) for k, v in values.items()})
+    expected = (stats.norm.logpdf(values["threshold_mean"], 0, 1)
+                + stats.norm.logpdf(values["log_width_mean"], -1.5, 1)
+                + stats.halfnorm.logpdf(values["sigma_threshold"], scale=0.5)
+                + stats.halfnorm.logpdf(values["sigma_width"], scale=0.5))  # fmt: skip
+    limit = stats.norm.logpdf(values["latent_limit"], 0, 1.5)
+    np.testing.assert_allclose(log_prior(posterior, spec), expected + limit, atol=1e-12)
+    without = posterior.drop_vars("latent_limit")
+    np.testing.assert_allclose(log_prior(without, spec), expected, atol=1e-12)

@@ -317,6 +317,8 @@ def cell_probabilities(posterior: xr.Dataset, spec, study: StudyData, rng) -> np
 
 
 def hyper_parameters(spec: ModelSpec):
+    """The intercepts' and the terms' stated priors, and the latent limit's (a fit of a
+    study with a reference has it; without one it is absent and skipped)."""
     intercepts = [
         HyperParameter(variable, ("intercept", key), spec.intercept_prior(key))
         for variable, key in (
@@ -324,7 +326,8 @@ def hyper_parameters(spec: ModelSpec):
             ("log_width_mean", "log_width_prior"),
         )
     ]
-    return (*intercepts, *term_hyper_parameters(spec))
+    limit = HyperParameter("latent_limit", ("latent_limit", "prior"), LIMIT_PRIOR)
+    return (*intercepts, *term_hyper_parameters(spec), limit)
 
 
 FAMILY = Family(
