@@ -216,9 +216,7 @@ def compute_estimands(
             put(scope, "part", key, values, "part")
         for key, values in study_level(per_part, scope).items():
             put(scope, "study", key, values, None)
-    # a model that integrates the parts' effects out (latent class, a fallible reference)
-    # has no per-cell call probabilities to give these
-    if family_of(spec).appraiser_rows and latent.p_study is not None:
+    if family_of(spec).appraiser_rows:
         p = latent.p_study
         q = 1 - p if latent.q_study is None else latent.q_study
         put("study", "appraiser", "call_rate", p.mean(axis=1), "appraiser")

@@ -93,7 +93,7 @@ def check_simulated(spec: ModelSpec, part_mix: float | None) -> None:
             f"model {spec.name!r} (family {spec.family}): studies can be simulated for the "
             f"families {', '.join(simulated)} only; choose one of their models"
         )
-    if getattr(spec, "reference_accuracy", None) is not None:
+    if spec.reference_accuracy is not None:
         raise SpecError(
             f"model {spec.name!r} states the reference's error rates ([reference_accuracy]); "
             "studies with a fallible reference are not simulated yet: plan or calibrate the "
