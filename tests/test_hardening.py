@@ -676,6 +676,8 @@ def test_parts_mixed_for_everyone_is_counted_and_read(tmp_path):
     when the observed count lies above what the model replicates (and only then)."""
     from bayes_rr.checks.predictive import (
         DEPENDENCE_STATISTIC,
+        ORDER_STATISTIC,
+        SPREAD_STATISTIC,
         CheckResult,
         CheckStatistic,
         dependence_sentence,
@@ -697,13 +699,23 @@ def test_parts_mixed_for_everyone_is_counted_and_read(tmp_path):
     study = read_study(write(tmp_path, "s.csv", "\n".join(rows) + "\n"))
     found = study_statistics(study.cells["s"].to_numpy()[None, :], study)
     assert found[DEPENDENCE_STATISTIC][3][0] == 2
+    # Ben rejects 4 of 8, Ann 3 of 8: Ann never rejects more on a part, no reversal
+    assert found[ORDER_STATISTIC][3][0] == 0
+    # by hand: between-appraiser variance 0.0625 (P2 only), mean q(1 - q) 0.25 + 0.125
+    # + 0 + 0.25: share 0.0625 / 0.6875 = 1/11
+    assert found[SPREAD_STATISTIC][3][0] == pytest.approx(1 / 11)
 
-    def result(p_value: float) -> CheckResult:
-        stat = CheckStatistic(DEPENDENCE_STATISTIC, "dependence", "", None, 6.0,
-                              np.zeros(10), p_value, p_value < 0.025)  # fmt: skip
+    def result(p_value: float, name: str = DEPENDENCE_STATISTIC) -> CheckResult:
+        stat = CheckStatistic(name, "dependence", "", None, 6.0, np.zeros(10), p_value,
+                              p_value < 0.025 or p_value > 0.975)  # fmt: skip
         return CheckResult("m", 10, 0, (stat,))
 
     latent, reference = load_spec("latent-class"), load_spec("reference-logit")
     assert "beyond two classes" in dependence_sentence(result(0.001), latent)
     assert dependence_sentence(result(0.4), latent) is None
     assert dependence_sentence(result(0.001), reference) is None
+    # each statistic speaks on its own side only: fewer reversals, a larger share
+    assert "order of strictness" in dependence_sentence(result(0.99, ORDER_STATISTIC), latent)
+    assert dependence_sentence(result(0.01, ORDER_STATISTIC), latent) is None
+    assert "between appraisers" in dependence_sentence(result(0.01, SPREAD_STATISTIC), latent)
+    assert dependence_sentence(result(0.99, SPREAD_STATISTIC), latent) is None

@@ -13,7 +13,7 @@ import json
 
 import numpy as np
 import pytest
-from scipy import stats
+from scipy import integrate, stats
 from typer.testing import CliRunner
 
 from bayes_rr.cli import app
@@ -250,9 +250,11 @@ def test_a_random_third_of_references_recovers_the_study_rates(tmp_path):
     limit in its interval."""
     sim, status, table = _with_partial_reference(5)
     table.to_csv(tmp_path / "study.csv", index=False)
+    (tmp_path / "line.toml").write_text("bad_share = 0.02\n")
     out = tmp_path / "fit"
     result = runner.invoke(app, ["fit", str(tmp_path / "study.csv"), "--model", "latent-trait",
-                                 "--out", str(out), "--seed", "1", "--quiet"])  # fmt: skip
+                                 "--out", str(out), "--seed", "1", "--quiet",
+                                 "--production", str(tmp_path / "line.toml")])  # fmt: skip
     assert result.exit_code == 0, result.output
     summary = json.loads((out / "summary.json").read_text())
     assert summary["diagnostics"]["ok"], summary["diagnostics"]
@@ -271,9 +273,172 @@ def test_a_random_third_of_references_recovers_the_study_rates(tmp_path):
     assert sum(held) >= 7, held
     limit = rows[("latent_limit", None)]
     assert limit["lower"] <= 0.3 <= limit["upper"]
+    # population scope: each appraiser on a new part of the status, the true curves
+    # integrated by scipy.integrate.quad over N(0, 1) on each side of 0.3
+    from scipy.special import ndtr
+
+    t, w = sim.params["thresholds"], sim.params["widths"]
+    population = {(r["key"], r["appraiser"]): r for r in summary["estimands"]
+                  if r["scope"] == "population"}  # fmt: skip
+    held = []
+    for j, name in enumerate(summary["design"]["appraiser_names"]):
+        frr = _side_mean(lambda z, j=j: ndtr((z - t[j]) / w[j]), 0.3, 0)
+        far = _side_mean(lambda z, j=j: 1 - ndtr((z - t[j]) / w[j]), 0.3, 1)
+        for key, value in (("false_reject_rate", frr), ("false_accept_rate", far)):
+            row = population[(key, name)]
+            held.append(row["lower"] <= value <= row["upper"])
+    assert sum(held) >= 7, held
+    assert ("false_accept_rate", None) in population
+    # production: one call on a line part of a status is the population-scope rate
+    production = {(r["key"], r["appraiser"]): r for r in summary["estimands"]
+                  if r["scope"] == "production"}  # fmt: skip
+    for key in ("false_reject_rate", "false_accept_rate"):
+        for name in summary["design"]["appraiser_names"]:
+            assert production[(key, name)]["mean"] == pytest.approx(
+                population[(key, name)]["mean"], rel=1e-9
+            )
+    assert production[("escaped_per_million", None)]["mean"] > 0
     report = runner.invoke(app, ["report", str(out)])  # reads the fit folder back
     assert report.exit_code == 0, report.output
     assert "false reject rate" in (out / "report.html").read_text()
+
+
+def _draws(**values):
+    """One posterior draw as a Dataset (arrays get an appraiser dim)."""
+    import xarray as xr
+
+    def dims(value) -> tuple[str, ...]:
+        return ("chain", "draw") + (("appraiser",) if np.ndim(value) else ())
+
+    return xr.Dataset({k: (dims(v), np.reshape(v, (1, 1, *np.shape(v))))
+                       for k, v in values.items()})  # fmt: skip
+
+
+def _side_mean(f, limit: float, side: int) -> float:
+    """E[f(z) | z on that side of the limit], z ~ N(0, 1): scipy.integrate.quad."""
+    lo, hi = (-12.0, limit) if side == 0 else (limit, 12.0)
+    mass = stats.norm.cdf(limit) if side == 0 else stats.norm.sf(limit)
+    return integrate.quad(lambda z: f(z) * stats.norm.pdf(z), lo, hi, limit=200,
+                          epsabs=1e-12)[0] / mass  # fmt: skip
+
+
+@pytest.mark.parametrize("link", ["probit", "logistic"])
+@pytest.mark.parametrize("width", [0.03, 0.2, 1.0])
+def test_population_rates_of_the_study_appraisers_match_quadrature(link, width):
+    """Each appraiser's population-scope rate is E[F((z - t)/w) | z below the limit]
+    (false reject) and E[1 - F | z above] (false accept), z ~ N(0, 1): against
+    scipy.integrate.quad to 5e-5 for curve scales from 0.03 to 1."""
+    from scipy.special import expit, ndtr
+
+    curve = ndtr if link == "probit" else expit
+    limit, t = 0.4, np.array([0.1, 0.5])
+    w = np.array([width, 2 * width])
+    rates = latent_trait.population_rates(
+        _draws(latent_limit=limit, threshold=t, curve_scale=w, threshold_mean=0.3,
+               log_width_mean=np.log(width)), link)["appraiser"]  # fmt: skip
+    for j in range(2):
+        frr = _side_mean(lambda z, j=j: curve((z - t[j]) / w[j]), limit, 0)
+        far = _side_mean(lambda z, j=j: 1 - curve((z - t[j]) / w[j]), limit, 1)
+        assert rates["false_reject_rate"][0, j] == pytest.approx(frr, abs=5e-5)
+        assert rates["false_accept_rate"][0, j] == pytest.approx(far, abs=5e-5)
+    share = stats.norm.sf(limit)
+    assert rates["reference_agreement"][0, 0] == pytest.approx(
+        (1 - share) * (1 - rates["false_reject_rate"][0, 0])
+        + share * (1 - rates["false_accept_rate"][0, 0])
+    )
+
+
+@pytest.mark.parametrize("link", ["probit", "logistic"])
+def test_a_new_appraisers_rates_match_nested_quadrature(link):
+    """The system's population rate: a new appraiser (threshold ~ N(beta, sigma_t),
+    log width ~ N(omega, sigma_w)) on a new part of the status. Against nested
+    scipy.integrate.quad over position, threshold and log width (to 2e-5)."""
+    from scipy.special import expit, ndtr
+
+    curve = ndtr if link == "probit" else expit
+    limit, beta, sigma_t, omega, sigma_w = -0.2, 0.1, 0.3, np.log(0.2), 0.4
+    rates = latent_trait.population_rates(
+        _draws(latent_limit=limit, threshold=np.array([0.0, 0.2]),
+               curve_scale=np.array([0.2, 0.2]), threshold_mean=beta, log_width_mean=omega,
+               sigma_threshold=sigma_t, sigma_width=sigma_w), link)["system"]  # fmt: skip
+
+    z = np.linspace(-7, 7, 281)  # a new appraiser's curve is smooth in z: a spline on it
+
+    def over_threshold(v: float) -> np.ndarray:
+        w = np.exp(omega + sigma_w * v)
+        return integrate.quad_vec(lambda u: curve((z - beta - sigma_t * u) / w)
+                                  * stats.norm.pdf(u), -9, 9, epsabs=1e-11)[0]  # fmt: skip
+
+    curve_of_new = integrate.quad_vec(lambda v: over_threshold(v) * stats.norm.pdf(v), -8, 8,
+                                      epsabs=1e-10)[0]  # fmt: skip
+    from scipy.interpolate import CubicSpline
+
+    spline = CubicSpline(z, curve_of_new)
+    frr = _side_mean(spline, limit, 0)
+    far = _side_mean(lambda x: 1 - spline(x), limit, 1)
+    assert rates["false_reject_rate"][0] == pytest.approx(frr, abs=2e-5)
+    assert rates["false_accept_rate"][0] == pytest.approx(far, abs=2e-5)
+
+
+def test_side_nodes_reproduce_the_truncated_normal():
+    """The equal-probability nodes on each side of a limit have the mean and variance of
+    N(0, 1) truncated there (scipy.stats.truncnorm), far into the tails too."""
+    for limit in (-3.0, 0.0, 1.2, 4.0):
+        good, bad = latent_trait.side_positions(np.array([limit]))
+        below = stats.truncnorm(-np.inf, limit)
+        above = stats.truncnorm(limit, np.inf)
+        assert good.mean() == pytest.approx(below.mean(), abs=2e-3 * below.std())
+        assert bad.mean() == pytest.approx(above.mean(), abs=2e-3 * above.std())
+        assert good.std() == pytest.approx(below.std(), rel=5e-3)
+        assert np.all(good < limit) and np.all(bad > limit)
+
+
+def test_production_needs_a_reference_status(tmp_path):
+    """Without any reference the latent scale has no limit: a production file is refused
+    before sampling, one clean line and exit 2; planning with production is refused."""
+    study = tmp_path / "s.csv"
+    simulate_latent_trait(30, 3, 2, seed=4).study.calls.to_csv(study, index=False)
+    production = tmp_path / "line.toml"
+    production.write_text("bad_share = 0.02\n")
+    args = ["fit", str(study), "--model", "latent-trait", "--production", str(production),
+            "--out", str(tmp_path / "f"), "--quiet"]  # fmt: skip
+    result = runner.invoke(app, args)
+    assert result.exit_code == 2, result.output
+    assert "reference status" in result.output and "Traceback" not in result.output
+    assert not (tmp_path / "f").exists()
+
+
+def test_production_calls_use_the_population_side_integrals():
+    """On the line, one call by study appraiser j on a good part is the population-scope
+    rate of j (the same side distribution), and the single-call system rate is the
+    line's share-weighted mean of them; a second call by the same appraiser on a bad
+    part accepted the first time is E[(1 - p)^2 | bad], by scipy.integrate.quad."""
+    from scipy.special import expit, ndtr
+
+    from bayes_rr.results.production import line_draws
+    from bayes_rr.study.production import ProductionMix, Strategy
+
+    t, w, limit = np.array([-0.1, 0.4]), np.array([0.15, 0.3]), 0.2
+    draws = _draws(latent_limit=limit, threshold=t, curve_scale=w, threshold_mean=0.1,
+                   log_width_mean=np.log(0.2))  # fmt: skip
+    spec = load_spec("latent-trait")
+    mix = ProductionMix(source="line.toml", bad_share=0.03)
+    nodes = latent_trait.production_calls(draws, spec, None, mix)
+    shares = np.array([0.7, 0.3])
+    strategies = (Strategy("single"), Strategy("confirm_same", k=1))
+    line = line_draws(nodes, np.array([0.03]), shares, strategies)
+    population = latent_trait.population_rates(draws, spec.link)["appraiser"]
+    for key in ("false_reject_rate", "false_accept_rate"):
+        assert line.appraiser[key][0] == pytest.approx(population[key][0], abs=1e-12)
+        assert line.strategies["single"][key][0] == pytest.approx(population[key][0] @ shares)
+    # confirm_same k=1: rejected only when both calls reject; a bad part escapes
+    # unless both reject
+    curve = ndtr if spec.link == "probit" else expit
+    both = sum(share * _side_mean(lambda z, j=j: curve((z - t[j]) / w[j]) ** 2, limit, 1)
+               for j, share in enumerate(shares))  # fmt: skip
+    assert line.strategies["confirm_same_1"]["false_accept_rate"][0] == pytest.approx(
+        1 - both, abs=5e-5
+    )
 
 
 def test_the_latent_limit_prior_is_power_scaled_with_the_others():

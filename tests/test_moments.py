@@ -119,3 +119,28 @@ def test_one_appraiser_one_trial_computes_the_rest():
     assert "corrected repeatability" in names
     assert "across appraisers" in names
     assert result.plug_in.study["rr_variance"] is not None
+
+
+@pytest.mark.parametrize(("a", "b"), [(1.0, 0.0), (1.0, 0.3), (0.05, 0.3), (0.01, 2.0), (2.0, 2.0)])
+def test_logistic_plus_normal_cdf_matches_quadrature(a, b):
+    """P(a L + b U <= x), L standard logistic and U standard normal: against
+    scipy.integrate.quad of expit((x - b u) / a) phi(u) to 1e-9, on both branches of
+    the kernel (b <= a sums over U, b > a over L)."""
+    from scipy import integrate, stats
+    from scipy.special import expit
+
+    from bayes_rr.core.kernels import logistic_plus_normal_cdf
+
+    x = np.array([[-3.0, -0.4, 0.0, 0.07, 1.5]])
+    got = logistic_plus_normal_cdf(x, np.array([a]), np.array([b]))[0]
+    for value, found in zip(x[0], got, strict=True):
+        if b == 0:
+            want = expit(value / a)
+        else:
+
+            def integrand(u, v=value):
+                return expit((v - b * u) / a) * stats.norm.pdf(u)
+
+            want = integrate.quad(integrand, -12, 12, points=[value / b], limit=200,
+                                  epsabs=1e-13)[0]  # fmt: skip
+        assert found == pytest.approx(want, abs=1e-9)

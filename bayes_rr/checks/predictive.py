@@ -8,6 +8,10 @@ that matter for an inspection study are compared with the observed ones:
 * the number of parts on which all calls (all appraisers) agree;
 * how many parts got 0, 1, ..., all reject calls;
 * each appraiser's overall reject share;
+* dependence beyond the model's own (the parts called both ways by every appraiser,
+  the reversals of the appraisers' order of strictness part by part, and the share
+  of a part's variation that lies between appraisers): a latent class fit on a
+  continuous judged property shows there;
 * with a reference status: the share of calls that agree with it (per appraiser
   and overall).
 
@@ -126,24 +130,28 @@ class CheckResult:
 
 def dependence_sentence(result: CheckResult, spec: ModelSpec) -> str | None:
     """For a latent class fit whose calls depend on each other beyond the two classes
-    (more parts called both ways by every appraiser than the model replicates), the
-    sentence that says what that means; None otherwise."""
+    (one of the dependence statistics lies on the side a continuous property gives,
+    beyond the flag level), the sentence that says what that means; None otherwise."""
     from bayes_rr.families import family_of
 
     if not family_of(spec).dependence_check:
         return None
-    found = next((st for st in result.statistics if st.name == DEPENDENCE_STATISTIC), None)
-    if found is None or not found.p_value < FLAG_LOW:
+    found = []
+    for stat in result.statistics:
+        side = DEPENDENCE_STATISTICS.get(stat.name)
+        if side is None:
+            continue
+        beyond = stat.p_value < FLAG_LOW if side == "more" else stat.p_value > FLAG_HIGH
+        if beyond:
+            found.append(f"{DEPENDENCE_FINDINGS[stat.name]} (mid-p {stat.p_value:.3f})")
+    if not found:
         return None
     return (
-        f"{found.observed:.0f} parts were called both ways by every appraiser who called "
-        f"them twice or more, more than the latent class model replicates (mid-p "
-        f"{found.p_value:.3f}): the calls depend on each other beyond two classes, as when "
-        "the judged property is continuous (a length, a diameter) and borderline parts "
-        "draw mixed calls from everyone. The latent class false reject and false accept "
-        "rates may then be biased. Fit latent-trait (parts on the property's scale) and "
-        "weigh the two with 'bayes-rr compare'; with a measured value per part use "
-        "call-curve"
+        f"{'; '.join(found)}: the calls depend on each other beyond two classes, as when "
+        "the judged property is continuous (a length, a diameter) and the appraisers' "
+        "thresholds on it differ. The latent class false reject and false accept rates may "
+        "then be biased. Fit latent-trait (parts on the property's scale) and weigh the "
+        "two with 'bayes-rr compare'; with a measured value per part use call-curve"
     )
 
 
@@ -152,7 +160,30 @@ def dependence_sentence(result: CheckResult, spec: ModelSpec) -> str | None:
 
 
 DEPENDENCE_STATISTIC = "parts_mixed_for_everyone"
-"""The statistic that shows calls depending on each other beyond two classes."""
+ORDER_STATISTIC = "appraiser_order_reversals"
+SPREAD_STATISTIC = "between_appraiser_share"
+DEPENDENCE_STATISTICS = {
+    DEPENDENCE_STATISTIC: "more",
+    ORDER_STATISTIC: "fewer",
+    SPREAD_STATISTIC: "more",
+}
+"""The statistics that show calls depending on each other beyond two classes, and the
+side of the replicated range a continuous judged property puts the observed value on.
+
+On a continuous property each appraiser rejects beyond their own threshold: a part
+between two thresholds is rejected by the stricter appraiser and accepted by the
+other, so the appraisers' order of strictness holds part by part (few reversals) and
+they differ on a part more than their own repeat calls do. Measured (latent class fits
+of 60 parts x 4 appraisers x 3 trials, seeds 1-20; DEVELOPERS.md): the sentence came for
+10 of 20 latent-trait studies and none of 20 two-class studies."""
+DEPENDENCE_FINDINGS = {
+    DEPENDENCE_STATISTIC: "more parts were called both ways by every appraiser than the "
+    "latent class model replicates",
+    ORDER_STATISTIC: "the appraisers' order of strictness holds part by part more often than "
+    "the latent class model replicates",
+    SPREAD_STATISTIC: "a larger share of the calls' variation on a part lies between "
+    "appraisers than the latent class model replicates",
+}
 
 
 def study_statistics(
@@ -207,6 +238,7 @@ def study_statistics(
             None,
             every.sum(axis=1).astype(float),
         )
+    out.update(_order_and_spread(s, study))
     for k in range(int(per_part_n.max()) + 1):
         out[f"parts_with_{k}_rejects"] = (
             "rejects_per_part",
@@ -240,6 +272,65 @@ def study_statistics(
             match.sum(axis=1) / n.sum(),
         )
     return out
+
+
+def _order_and_spread(s: np.ndarray, study: StudyData) -> dict:
+    """The appraiser-order reversals and the between-appraiser share of reject counts
+    ``s`` (D, cell), on parts called by two or more appraisers (none: no statistics).
+
+    Reversals: pairs of appraisers on a part whose reject shares are in the reverse of
+    their overall order (the more lenient over all parts rejecting more here; each
+    study, observed or replicated, ordered by its own calls). Share: summed over parts,
+    the variance of the appraisers' reject shares q on the part, over that plus their
+    mean q (1 - q) (the observed reproducibility share of the calls' variance)."""
+    from bayes_rr.families.layout import call_grids
+
+    n, _ = call_grids(study)
+    cells = study.cells
+    part, app = cells["part_index"].to_numpy(), cells["appraiser_index"].to_numpy()
+    called = n > 0
+    shared = called.sum(axis=1) >= 2
+    if not shared.any():
+        return {}
+    grid = np.zeros((s.shape[0], *n.shape))
+    grid[:, part, app] = s
+    q = grid / np.maximum(n, 1)
+    overall = grid.sum(axis=1) / np.maximum(n.sum(axis=0), 1)  # (D, J)
+    reversals = np.zeros(s.shape[0])
+    j_count = n.shape[1]
+    for a in range(j_count):
+        for b in range(a + 1, j_count):
+            both = called[:, a] & called[:, b]
+            if not both.any():
+                continue
+            # sign of the overall order per study; a tie orders nothing
+            order = np.sign(overall[:, b] - overall[:, a])[:, None]
+            here = np.sign(q[:, both, b] - q[:, both, a])
+            reversals += ((here * order) < 0).sum(axis=1)
+    count = called.sum(axis=1)[shared]
+    qs, mask = q[:, shared], called[shared][None].astype(float)
+    mean = (qs * mask).sum(axis=2) / count
+    between = (((qs - mean[..., None]) ** 2) * mask).sum(axis=2) / count
+    within = (qs * (1 - qs) * mask).sum(axis=2) / count
+    total = between.sum(axis=1) + within.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        # a study whose every part got one call from everyone has no variation: share 0
+        spread = np.where(total > 0, between.sum(axis=1) / total, 0.0)
+    return {
+        ORDER_STATISTIC: (
+            "dependence",
+            "pairs of appraisers on a part whose reject shares reverse their overall order",
+            None,
+            reversals,
+        ),
+        SPREAD_STATISTIC: (
+            "dependence",
+            "share of the calls' variance on a part that lies between appraisers (the "
+            "variance of their reject shares q over it plus their mean q(1 - q)), over parts",
+            None,
+            spread,
+        ),
+    }
 
 
 def mid_p_value(replicated: np.ndarray, observed: float) -> float:

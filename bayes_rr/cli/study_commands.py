@@ -131,11 +131,13 @@ MODEL_CHOICE = (
     "reproducibility alone.",
     "2. Is the judged property measured on a scale (a diameter, a length) or truly "
     "two-valued (a part present or missing)? With a measured value per part and a limit: "
-    "call-curve. Without one, a property on a scale makes borderline parts draw mixed "
-    "calls from everyone, which latent-class does not expect ('bayes-rr check' says so "
-    "when it sees it) and latent-trait does: it places parts and appraisers' thresholds "
-    "on the unmeasured property's scale. A truly two-valued property suits latent-class; "
-    "'bayes-rr compare' weighs the two on your data.",
+    "call-curve. Without one, a property on a scale puts each appraiser's threshold "
+    "somewhere on it: a part between two thresholds is rejected by the stricter appraiser "
+    "and accepted by the other, part after part, which latent-class does not expect "
+    "('bayes-rr check' says so when it sees it; at 60 parts x 4 appraisers x 3 trials it "
+    "saw it in about half of such studies) and latent-trait does: it places parts and "
+    "appraisers' thresholds on the unmeasured property's scale. A truly two-valued "
+    "property suits latent-class; 'bayes-rr compare' weighs the two on your data.",
     "Without --model, fit takes reference-logit for a full reference, latent-class for a "
     "partial one, call-curve for a measured value and a limit, and crossed-logit "
     "otherwise, and says which.",

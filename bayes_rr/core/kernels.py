@@ -50,6 +50,7 @@ def _compiled():
         _jit(_numba_loops.rank_scores),
         _jit(_numba_loops.geyer_ess, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.logistic_moments, fastmath=SUMS_IN_ANY_ORDER),
+        _jit(_numba_loops.logistic_plus_normal_cdf, fastmath=SUMS_IN_ANY_ORDER),
     )
 
 
@@ -162,3 +163,30 @@ def logistic_moments(
     standard-normal ``rule`` (nodes, weights). ``eta`` (S, E), ``scale`` (S,)."""
     kernel = _compiled()[4]
     return kernel(_f64(eta), _f64(scale), _f64(rule[0]), _f64(rule[1]))
+
+
+def _trapezoid(density, half_width: float, step: float) -> tuple[np.ndarray, np.ndarray]:
+    nodes = np.arange(-half_width, half_width + step / 2, step)
+    weights = density(nodes)
+    return nodes, weights / weights.sum()
+
+
+CONVOLUTION_STEP = 0.5
+"""Step of the trapezoid rules of :func:`logistic_plus_normal_cdf`. Both integrands are
+analytic in a strip of half-width pi about the real axis (the logistic's poles at
+i pi), where the normal factor grows up to exp(pi^2 / 2): the error falls like
+exp(-2 pi^2 / step + pi^2 / 2), about 1e-15 at 0.5 (2e-9 measured at 0.75); the rules
+end where the tails hold less than 3e-11 (logistic, |L| = 25; normal, |U| = 9)."""
+
+
+def logistic_plus_normal_cdf(x: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """P(a L + b U <= x) per (draw, element), L standard logistic and U standard normal
+    independent: a logistic curve of scale ``a`` averaged over a normal threshold of sd
+    ``b`` (``x`` (S, E); ``a``, ``b`` (S,), a > 0, b >= 0)."""
+    from scipy.special import expit
+    from scipy.stats import norm
+
+    u, w_u = _trapezoid(norm.pdf, 9.0, CONVOLUTION_STEP)
+    v, w_v = _trapezoid(lambda t: expit(t) * expit(-t), 25.0, CONVOLUTION_STEP)
+    kernel = _compiled()[5]
+    return kernel(_f64(x), _f64(a), _f64(b), _f64(u), _f64(w_u), _f64(v), _f64(w_v))

@@ -4,6 +4,8 @@
 without compilation.
 """
 
+import math
+
 import numba
 import numpy as np
 
@@ -76,6 +78,28 @@ def logistic_moments(eta, scale, u, w):
             first[s, i] = m1
             second[s, i] = m2
     return first, second
+
+
+def logistic_plus_normal_cdf(x, a, b, u, w_u, v, w_v):
+    # P(a L + b U <= x) for L standard logistic and U standard normal, per (draw,
+    # element), a and b per draw. The smoother of the two integrands is summed: over U
+    # (rule u, w_u) when b <= a, where expit((x - b U) / a) varies on a scale of a / b
+    # >= 1 in U; over L (rule v, w_v) otherwise, where Phi((x - a L) / b) does in L.
+    draws, size = x.shape
+    out = np.empty((draws, size))
+    root_half = 0.7071067811865476
+    for s in numba.prange(draws):
+        over_normal = b[s] <= a[s]
+        for i in range(size):
+            total = 0.0
+            if over_normal:
+                for j in range(u.size):
+                    total += w_u[j] / (1.0 + np.exp(-(x[s, i] - b[s] * u[j]) / a[s]))
+            else:
+                for j in range(v.size):
+                    total += w_v[j] * 0.5 * math.erfc(-(x[s, i] - a[s] * v[j]) / b[s] * root_half)
+            out[s, i] = total
+    return out
 
 
 def log_integrated_binomial(eta, scale, n, k, u, log_w):

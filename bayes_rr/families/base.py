@@ -133,8 +133,8 @@ class Family:
     """Whether the family takes a reference status for every part without needing it
     (a reference column is then not an ignored option)."""
     dependence_check: bool = False
-    """Whether the predictive check's count of parts called both ways by everyone speaks
-    against the family's assumption (calls independent given a part's class)."""
+    """Whether the predictive check's dependence statistics speak against the family's
+    assumption (calls independent given a part's class)."""
     simulated: bool = False
     """Whether studies can be simulated from the model (plan, calibrate)."""
     simulated_parts: str = "drawn"
@@ -153,6 +153,9 @@ class Family:
     production_calls: Callable[..., CallNodes] | None = None
     """``(posterior, spec, study, mix)`` -> :class:`CallNodes`: the family's calls on
     production parts; None for a family without wrong-call rates."""
+    production_needs_reference: bool = False
+    """Whether production figures need some parts with a reference status (the latent
+    trait model places the limit on its scale from them)."""
     stratified_calls: Callable[..., CallNodes] | None = None
     """``(posterior, spec, study, mix, rng)`` -> :class:`CallNodes` over the study's own
     parts, weighted to production's strata (a family with each part's known status);

@@ -114,6 +114,10 @@ def _check_production(request: PlanRequest) -> None:
     if not family_of(request.spec).takes_production:
         raise SpecError(f"{mix.source}: production figures need a model with wrong-call "
                         f"rates, not {request.spec.name!r}")  # fmt: skip
+    if family_of(request.spec).production_needs_reference:
+        raise SpecError(f"{mix.source}: simulated {request.spec.name!r} studies have no "
+                        "reference status to place the limit; plan without production "
+                        "figures")  # fmt: skip
     if mix.strata is not None:
         raise SpecError(f"{mix.source}: simulated studies have no strata; give bad_share "
                         "for planning")  # fmt: skip

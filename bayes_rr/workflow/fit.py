@@ -285,6 +285,10 @@ def _against_exact_reference(study, spec, settings, rows, prob, interval, two_st
     )
 
 
+def _has_status(study) -> bool:
+    return study.reference is not None or study.partial_status is not None
+
+
 def _check_production(production, criteria, spec, study) -> None:
     """Refuse, before sampling, a production file the model cannot use and production
     criteria without one."""
@@ -294,8 +298,14 @@ def _check_production(production, criteria, spec, study) -> None:
         if not family_of(spec).takes_production:
             raise SpecError(
                 f"{production.source}: production figures need a model with wrong-call rates "
-                f"(reference-logit, latent-class, call-curve), not {spec.name!r}; leave out "
-                "the production file, or fit one of those"
+                f"(reference-logit, latent-class, call-curve, latent-trait), not "
+                f"{spec.name!r}; leave out the production file, or fit one of those"
+            )
+        if family_of(spec).production_needs_reference and not _has_status(study):
+            raise SpecError(
+                f"{production.source}: the {spec.name!r} model gives production figures only "
+                "when some parts have a reference status (they place the limit on its scale); "
+                "add a reference column, or leave the production file out"
             )
         from bayes_rr.study.production import check_against_study
 
