@@ -717,5 +717,5 @@ def test_parts_mixed_for_everyone_is_counted_and_read(tmp_path):
     # each statistic speaks on its own side only: fewer reversals, a larger share
     assert "order of strictness" in dependence_sentence(result(0.99, ORDER_STATISTIC), latent)
     assert dependence_sentence(result(0.01, ORDER_STATISTIC), latent) is None
-    assert "between appraisers" in dependence_sentence(result(0.01, SPREAD_STATISTIC), latent)
+    assert "appraisers differing" in dependence_sentence(result(0.01, SPREAD_STATISTIC), latent)
     assert dependence_sentence(result(0.99, SPREAD_STATISTIC), latent) is None

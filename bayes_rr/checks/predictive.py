@@ -10,7 +10,7 @@ that matter for an inspection study are compared with the observed ones:
 * each appraiser's overall reject share;
 * dependence beyond the model's own (the parts called both ways by every appraiser,
   the reversals of the appraisers' order of strictness part by part, and the share
-  of a part's variation that lies between appraisers): a latent class fit on a
+  of a part's variation that comes from the appraisers differing): a latent class fit on a
   continuous judged property shows there;
 * with a reference status: the share of calls that agree with it (per appraiser
   and overall).
@@ -181,8 +181,8 @@ DEPENDENCE_FINDINGS = {
     "latent class model replicates",
     ORDER_STATISTIC: "the appraisers' order of strictness holds part by part more often than "
     "the latent class model replicates",
-    SPREAD_STATISTIC: "a larger share of the calls' variation on a part lies between "
-    "appraisers than the latent class model replicates",
+    SPREAD_STATISTIC: "a larger share of the calls' variation on a part comes from the "
+    "appraisers differing than the latent class model replicates",
 }
 
 
@@ -325,8 +325,9 @@ def _order_and_spread(s: np.ndarray, study: StudyData) -> dict:
         ),
         SPREAD_STATISTIC: (
             "dependence",
-            "share of the calls' variance on a part that lies between appraisers (the "
-            "variance of their reject shares q over it plus their mean q(1 - q)), over parts",
+            "share of the calls' variance on a part that comes from appraisers differing: "
+            "the variance of their reject shares q over that plus their mean q(1 - q), "
+            "each summed over parts",
             None,
             spread,
         ),
