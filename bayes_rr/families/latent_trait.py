@@ -17,6 +17,7 @@ unit the data fix whatever the property's own unit is.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -301,11 +302,30 @@ def side_positions(limit: np.ndarray, count: int = SIDE_NODES) -> tuple[np.ndarr
     return good, bad
 
 
+@dataclass(frozen=True)
+class AppraiserPopulation:
+    """Per-draw parameters of the appraisers' population (S = draws): thresholds
+    t ~ N(beta, sigma_threshold^2), log curve scales ~ N(omega, sigma_width^2); a
+    spread the spec leaves out is 0 (None for the width)."""
+
+    beta: np.ndarray
+    sigma_threshold: np.ndarray
+    omega: np.ndarray
+    sigma_width: np.ndarray | None
+
+    @classmethod
+    def of(cls, posterior: xr.Dataset) -> AppraiserPopulation:
+        omega = draws_of(posterior, "log_width_mean")
+        width = draws_of(posterior, "sigma_width") if "sigma_width" in posterior else None
+        spread = optional_draws(posterior, "sigma_threshold", omega.shape)
+        return cls(draws_of(posterior, "threshold_mean"), spread, omega, width)
+
+
 def new_appraiser_probability(
-    z: np.ndarray, posterior: xr.Dataset, link: str, rows: slice = slice(None)
+    z: np.ndarray, population: AppraiserPopulation, link: str, rows: slice = slice(None)
 ) -> np.ndarray:
-    """E[F((z - t) / w)] over a new appraiser, t ~ N(beta, sigma_threshold^2) and
-    log w ~ N(omega, sigma_width^2), at positions ``z`` (S, K) of the draws ``rows``.
+    """E[F((z - t) / w)] over a new appraiser drawn from ``population``, at positions
+    ``z`` (S, K) of the draws ``rows``.
 
     The threshold is integrated in closed form for the normal link
     (Phi((z - beta) / sqrt(w^2 + sigma_t^2))) and as P(w L + sigma_t U <= z - beta) for
@@ -316,21 +336,20 @@ def new_appraiser_probability(
     from bayes_rr.core.kernels import logistic_plus_normal_cdf
     from bayes_rr.families.status import normal_nodes
 
-    beta = draws_of(posterior, "threshold_mean")[rows][:, None]
-    omega = draws_of(posterior, "log_width_mean")[rows]
-    shape = omega.shape
-    sigma_t = optional_draws(posterior, "sigma_threshold", draws_of(posterior, "log_width_mean")
-                             .shape)[rows]  # fmt: skip
-    has_width = "sigma_width" in posterior
-    v, weight = normal_nodes(WIDTH_NODES) if has_width else (np.zeros(1), np.ones(1))
-    sigma_w = draws_of(posterior, "sigma_width")[rows] if has_width else np.zeros(shape)
+    offset = z - population.beta[rows, None]
+    sigma_t = population.sigma_threshold[rows]
+    omega = population.omega[rows]
+    if population.sigma_width is None:
+        v, weight, sigma_w = np.zeros(1), np.ones(1), np.zeros_like(omega)
+    else:
+        (v, weight), sigma_w = normal_nodes(WIDTH_NODES), population.sigma_width[rows]
     total = np.zeros(z.shape)
     for node, share in zip(v, weight, strict=True):
-        w = np.exp(omega + sigma_w * node)[:, None]
+        w = np.exp(omega + sigma_w * node)
         if link == "probit":
-            p = ndtr((z - beta) / np.sqrt(w**2 + sigma_t[:, None] ** 2))
+            p = ndtr(offset / np.sqrt(w**2 + sigma_t**2)[:, None])
         else:
-            p = logistic_plus_normal_cdf(z - beta, w[:, 0], sigma_t)
+            p = logistic_plus_normal_cdf(offset, w, sigma_t)
         total += share * p
     return total
 
@@ -345,30 +364,30 @@ def population_rates(posterior: xr.Dataset, link: str) -> dict[str, dict[str, np
     limit = draws_of(posterior, "latent_limit")
     t = draws_of(posterior, "threshold")
     w = draws_of(posterior, "curve_scale")
-    frr = np.empty(t.shape)
-    far = np.empty(t.shape)
-    system = np.empty((2, limit.size))
+    population = AppraiserPopulation.of(posterior)
+    # one call is a reject with this probability, by level and status (0 good, 1 bad)
+    study_appraisers = np.empty((2, *t.shape))
+    new_appraiser = np.empty((2, limit.size))
     for start in range(0, limit.size, SIDE_BLOCK):
         rows = slice(start, start + SIDE_BLOCK)
-        good, bad = side_positions(limit[rows])
-        for side, z, out in ((0, good, frr), (1, bad, far)):
+        sides = side_positions(limit[rows])
+        coarse = side_positions(limit[rows], NEW_APPRAISER_NODES)
+        for status in (0, 1):
+            z = sides[status]
             p = link_cdf(link, (z[:, :, None] - t[rows, None, :]) / w[rows, None, :])
-            mean_p = p.mean(axis=1)
-            out[rows] = mean_p if side == 0 else 1.0 - mean_p
-            new = new_appraiser_probability(side_positions(limit[rows], NEW_APPRAISER_NODES)
-                                            [side], posterior, link, rows).mean(axis=1)  # fmt: skip
-            system[side, rows] = new if side == 0 else 1.0 - new
-    share = 1.0 - ndtr(limit)
+            study_appraisers[status, rows] = p.mean(axis=1)
+            new_appraiser[status, rows] = new_appraiser_probability(
+                coarse[status], population, link, rows).mean(axis=1)  # fmt: skip
+    bad_share = 1.0 - ndtr(limit)
 
-    def agreement(false_reject, false_accept, bad_share):
-        return (1 - bad_share) * (1 - false_reject) + bad_share * (1 - false_accept)
+    def rates(reject: np.ndarray, share: np.ndarray) -> dict[str, np.ndarray]:
+        frr, far = reject[0], 1.0 - reject[1]
+        agreement = (1 - share) * (1 - frr) + share * (1 - far)
+        return {"false_reject_rate": frr, "false_accept_rate": far,
+                "reference_agreement": agreement}  # fmt: skip
 
-    return {
-        "appraiser": {"false_reject_rate": frr, "false_accept_rate": far,
-                      "reference_agreement": agreement(frr, far, share[:, None])},
-        "system": {"false_reject_rate": system[0], "false_accept_rate": system[1],
-                   "reference_agreement": agreement(system[0], system[1], share)},
-    }  # fmt: skip
+    return {"appraiser": rates(study_appraisers, bad_share[:, None]),
+            "system": rates(new_appraiser, bad_share)}  # fmt: skip
 
 
 SIDE_BLOCK = 200
@@ -393,9 +412,8 @@ def production_calls(posterior: xr.Dataset, spec, study: StudyData, mix) -> Call
 
     def probabilities(block: slice, status: int) -> np.ndarray:
         z = side_positions(limit[block])[status]
-        return link_cdf(spec.link, (z[:, :, None] - t[block, None, :]) / w[block, None, :])[
-            ..., None
-        ]
+        p = link_cdf(spec.link, (z[:, :, None] - t[block, None, :]) / w[block, None, :])
+        return p[..., None]  # one inner node: no appraiser-by-part term
 
     return CallNodes(limit.size, (weight, weight), np.ones(1), probabilities)
 
