@@ -325,9 +325,7 @@ def _order_and_spread(s: np.ndarray, study: StudyData) -> dict:
         ),
         SPREAD_STATISTIC: (
             "dependence",
-            "share of the calls' variance on a part that comes from appraisers differing: "
-            "the variance of their reject shares q over that plus their mean q(1 - q), "
-            "each summed over parts",
+            "share of the calls' variance on a part that comes from appraisers differing",
             None,
             spread,
         ),
