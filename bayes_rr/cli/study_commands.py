@@ -126,7 +126,9 @@ def models() -> None:
 MODEL_CHOICE = (
     "Which model, in two questions:",
     "1. Is there a reference? For every part: reference-logit. For some parts: "
-    "latent-class, which takes those and infers the rest. None: latent-class for false "
+    "latent-class, which takes those and infers the rest (or latent-trait, below, which "
+    "then places the limit on its scale and gives wrong-call rates too). None: "
+    "latent-class for false "
     "reject and false accept rates, or crossed-logit (beta-binomial) for repeatability and "
     "reproducibility alone.",
     "2. Is the judged property measured on a scale (a diameter, a length) or truly "
