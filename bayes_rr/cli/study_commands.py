@@ -128,9 +128,8 @@ MODEL_CHOICE = (
     "1. Is there a reference? For every part: reference-logit. For some parts: "
     "latent-class, which takes those and infers the rest (or latent-trait, below, which "
     "then places the limit on its scale and gives wrong-call rates too). None: "
-    "latent-class for false "
-    "reject and false accept rates, or crossed-logit (beta-binomial) for repeatability and "
-    "reproducibility alone.",
+    "latent-class for false reject and false accept rates, or crossed-logit "
+    "(beta-binomial) for repeatability and reproducibility alone.",
     "2. Is the judged property measured on a scale (a diameter, a length) or truly "
     "two-valued (a part present or missing)? With a measured value per part and a limit: "
     "call-curve. Without one, a property on a scale puts each appraiser's threshold "
