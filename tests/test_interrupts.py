@@ -117,3 +117,40 @@ def test_interrupt_in_the_middle_of_sampling_writes_no_partial_sample(study_file
         extra=["--chains", "1", "--draws", "100000", "--tune", "500", "--quiet"], delay=2.0,
     )  # fmt: skip
     assert_clean_interrupt(code, lines, out, study_file, before)
+
+
+def test_an_interrupt_python_cannot_raise_is_remembered_not_printed(capsys):
+    """Our handler's KeyboardInterrupt may land in a library's garbage-collector callback,
+    where Python prints 'Exception ignored in ...' and a traceback: under the guard that
+    report is dropped (the signal is remembered, and the next checkpoint raises it);
+    other unraisable exceptions still reach the previous hook."""
+    import signal
+    import sys
+    from types import SimpleNamespace
+
+    from bayes_rr.core import interrupts
+
+    def unraisable(exc: BaseException) -> SimpleNamespace:
+        return SimpleNamespace(exc_type=type(exc), exc_value=exc, exc_traceback=None,
+                               err_msg="Exception ignored in", object=None)  # fmt: skip
+
+    seen = []
+
+    def keep(report) -> None:
+        seen.append(report)
+
+    previous, sys.unraisablehook = sys.unraisablehook, keep
+    try:
+        with interrupts.guard():
+            with pytest.raises(KeyboardInterrupt):
+                interrupts._handler(signal.SIGINT, None)
+            sys.unraisablehook(unraisable(KeyboardInterrupt()))
+            assert seen == [] and capsys.readouterr().err == ""
+            sys.unraisablehook(unraisable(ValueError("kept")))
+            assert len(seen) == 1 and isinstance(seen[0].exc_value, ValueError)
+            with pytest.raises(KeyboardInterrupt):
+                interrupts.checkpoint("writing")
+        assert sys.unraisablehook is keep
+        interrupts.raise_if_interrupted()  # after the guard: the old signal is not acted on
+    finally:
+        sys.unraisablehook = previous

@@ -61,13 +61,30 @@ def guard(reporter: Callable[[str], None] | None = None) -> Iterator[None]:
     if main:
         for sig in (signal.SIGINT, signal.SIGTERM):
             previous[sig] = signal.signal(sig, _handler)
+    previous_hook = sys.unraisablehook
+    sys.unraisablehook = _quiet_about_signals(previous_hook)
     _state.received, _state.active, _state.reporter = None, True, reporter
     try:
         yield
     finally:
         _state.active, _state.reporter = False, None
+        sys.unraisablehook = previous_hook
         for sig, handler in previous.items():
             signal.signal(sig, handler)
+
+
+def _quiet_about_signals(previous_hook):
+    """An unraisable-exception hook that drops the interrupt our handler raised where
+    Python cannot raise (a garbage-collector callback of a library, a finaliser): it
+    would print a traceback, and the signal is remembered anyway, so the next
+    checkpoint acts on it. Anything else goes to ``previous_hook``."""
+
+    def hook(unraisable) -> None:
+        if isinstance(unraisable.exc_value, KeyboardInterrupt) and _state.received is not None:
+            return
+        previous_hook(unraisable)
+
+    return hook
 
 
 def _is_main_thread() -> bool:
@@ -82,8 +99,9 @@ def interrupted() -> bool:
 
 
 def raise_if_interrupted() -> None:
-    """Re-raise an interrupt that a library caught and swallowed."""
-    if _state.received is not None:
+    """Re-raise an interrupt that a library caught and swallowed (inside a guard only: a
+    signal remembered by an earlier command of the same process is not this one's)."""
+    if _state.active and _state.received is not None:
         raise KeyboardInterrupt
 
 

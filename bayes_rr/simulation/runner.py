@@ -20,6 +20,7 @@ from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from bayes_rr.core import interrupts
 from bayes_rr.core.errors import OutputError
 from bayes_rr.core.jsonio import dumps, write_text_atomic
 
@@ -253,6 +254,9 @@ def run_tasks(
                     failures[task.task_id] = record
                     write_text_atomic(failed_path, dumps(record) + "\n")
                 advance()
+                # an interrupt that landed where Python could not raise it (a library's
+                # callback) is still pending: stop now, not after every task
+                interrupts.raise_if_interrupted()
     except BaseException:
         quiet_dask()  # stopped (Ctrl-C, SIGTERM) or failed: the reason is said once, above
         raise
