@@ -103,9 +103,8 @@ def whole_fit(data: Path, model: str | None, repeats: int, work: Path) -> dict:
 
 def repeat_compile(repeats: int) -> float:
     """Compile seconds of a repeated fit of the same model and design in one process."""
-    from bayes_rr.core.distributions.spec import load_spec
-
     from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
     from bayes_rr.study.data import read_study
     from bayes_rr.study.describe import demo_path
     from bayes_rr.workflow.fit import fit_study
@@ -121,9 +120,8 @@ def repeat_compile(repeats: int) -> float:
 
 def per_fit(model: str, studies: int) -> dict:
     """Seconds per fit of simulated studies of the demo's design (45 x 3 x 3) in one process."""
-    from bayes_rr.core.distributions.spec import load_spec
-
     from bayes_rr.inference.sampling import SamplerSettings
+    from bayes_rr.priors.spec import load_spec
     from bayes_rr.simulation.known_truth import simulate_crossed_logit
     from bayes_rr.workflow.fit import fit_study
 

@@ -19,9 +19,8 @@ TARGETS = {"beta-binomial": 1.0, "crossed-logit": 3.0}
 
 
 def measure(model: str, sims: int, seed: int) -> dict:
-    from bayes_rr.core.distributions.spec import load_spec
-
     from bayes_rr.inference.sampling import forget_compiled
+    from bayes_rr.priors.spec import load_spec
     from bayes_rr.simulation.designs import Design
     from bayes_rr.simulation.plan import plan_task
     from bayes_rr.simulation.quick import simulation_settings

@@ -25,9 +25,9 @@ from scipy import stats
 
 def simuk_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
     import simuk
-    from bayes_rr.core.distributions.spec import load_spec
 
     from bayes_rr.families import build_model
+    from bayes_rr.priors.spec import load_spec
     from bayes_rr.simulation.designs import Design, skeleton_study
 
     spec = load_spec("beta-binomial")
@@ -47,8 +47,7 @@ def simuk_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
 def our_ranks(sims: int, seed: int) -> tuple[dict[str, np.ndarray], float]:
     import json
 
-    from bayes_rr.core.distributions.spec import load_spec
-
+    from bayes_rr.priors.spec import load_spec
     from bayes_rr.simulation.calibrate import CalibrationRequest, run_calibration
     from bayes_rr.simulation.designs import Design
 
