@@ -386,7 +386,7 @@ def test_ctrl_c_to_the_process_group_stops_a_plan_quietly(tmp_path):
     # far more simulations than finish in the test's few seconds: under a loaded machine
     # 40 once all finished before the signal came (exit 0 instead of 130)
     command = ["bayes-rr", "plan", "--model", "beta-binomial", "--parts", "10", "--appraisers",
-               "2", "--trials", "2", "--sims", "400", "--out", str(out), "--quiet", "--workers",
+               "2", "--trials", "2", "--sims", "4000", "--out", str(out), "--quiet", "--workers",
                "2"]  # fmt: skip
     run = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                            start_new_session=True)  # fmt: skip
