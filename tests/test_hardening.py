@@ -384,7 +384,8 @@ def test_ctrl_c_to_the_process_group_stops_a_plan_quietly(tmp_path):
 
     out = tmp_path / "plan"
     # far more simulations than finish in the test's few seconds: under a loaded machine
-    # 40 once all finished before the signal came (exit 0 instead of 130)
+    # 40 once all finished before the signal came (exit 0 instead of 130), and 400 did on
+    # the faster machine of 2026-12-04
     command = ["bayes-rr", "plan", "--model", "beta-binomial", "--parts", "10", "--appraisers",
                "2", "--trials", "2", "--sims", "4000", "--out", str(out), "--quiet", "--workers",
                "2"]  # fmt: skip
