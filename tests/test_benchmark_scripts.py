@@ -68,7 +68,14 @@ def test_the_missing_name_check_finds_an_old_module_path_and_a_removed_name(tmp_
 
 
 @pytest.mark.parametrize(
-    "name", ["bench_sampling.py", "bench_plan.py", "bench_fit.py", "bench_describe.py"]
+    "name",
+    [
+        "bench_sampling.py",
+        "bench_plan.py",
+        "bench_fit.py",
+        "bench_describe.py",
+        "try_grand_mean.py",
+    ],
 )
 def test_benchmark_help_runs(name):
     path = Path(__file__).parent / "benchmarks" / name
