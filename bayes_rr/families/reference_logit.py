@@ -38,6 +38,7 @@ from bayes_rr.families.status import (
     STATEMENTS,
     StatusDraws,
     called_mask,
+    part_effect_rule,
     population_rates,
     production_calls,
     rate_variables,
@@ -145,14 +146,6 @@ REFERENCE_RATE_VARIABLES = {"false_reject": "reference_false_reject",
                             "false_accept": "reference_false_accept"}  # fmt: skip
 
 
-PART_STEP = 0.2
-PART_HALF_WIDTH = 7.0
-"""The part's effect a = sigma_part u is integrated by the trapezoid rule on u in
-[-7, 7], step 0.2 (71 nodes). A part's calls make its likelihood in u as narrow as
-about 0.5 / sigma_part, which Gauss-Hermite rules resolve badly: against nested
-scipy.integrate.quad, for 18 calls with a mixed pattern, 24 Gauss-Hermite nodes were
-off by 0.1 in the log at sigma_part 2 and by 0.4 at 3, 64 nodes by 0.005 at 3; this
-rule by 1e-5 at 3 and 0.01 at 5 (tests/test_fallible_reference.py)."""
 INTERACTION_NODES = 10
 """Gauss-Hermite nodes over a cell's appraiser-by-part effect: its scale is small (prior
 half-normal(0.5)) and a cell holds a few calls, a smooth integrand (off by 0.003 in
@@ -192,8 +185,7 @@ def effect_nodes(spec: ModelSpec) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
     none = (np.zeros(1), np.zeros(1))
     part = none
     if spec.has("part"):
-        u = np.arange(-PART_HALF_WIDTH, PART_HALF_WIDTH + PART_STEP / 2, PART_STEP)
-        part = (u, -0.5 * u * u - 0.5 * np.log(2 * np.pi) + np.log(PART_STEP))
+        part = part_effect_rule()
     cell = none
     if spec.has("interaction"):
         v, w = gauss_hermite(INTERACTION_NODES)
@@ -202,15 +194,15 @@ def effect_nodes(spec: ModelSpec) -> tuple[tuple[np.ndarray, np.ndarray], ...]:
 
 
 def _fallible_reference(spec: ModelSpec, study: StudyData, mu) -> None:
-    """log L = sum_k w_k log sum_c P(c) P(r_k | c) L_k(c): the reference is one more rater
-    with the stated error rates, the part's true status c summed out, and L_k(c) the
+    """log L = sum_k w_k log sum_c P(c) P(r_k | c) L_k(c): the reference is one more rater with
+    the stated error rates, the part's true status c summed out, and L_k(c) the
     likelihood of the pattern's calls with the part's effect a ~ N(0, sigma_part) and
     each cell's effect ~ N(0, sigma_interaction) integrated by quadrature (see
-    ``PART_STEP`` and ``INTERACTION_NODES``; docs/statistics.md, family 3 with a fallible
-    reference). Sampled effects instead left each doubtful part two modes (a good part
-    called strictly, a bad part called leniently): r_hat 1.11 and 116 s for 60 x 3 x 3
-    simulated. A fixed rate of 0 makes the other status impossible for the parts it
-    decides: the sum has one term there."""
+    ``PART_RULE_STEP`` in families/status.py and ``INTERACTION_NODES``;
+    docs/statistics.md, family 3 with a fallible reference). Sampled effects instead
+    left each doubtful part two modes (a good part called strictly, a bad part called
+    leniently): r_hat 1.11 and 116 s for 60 x 3 x 3 simulated. A fixed rate of 0 makes
+    the other status impossible for the parts it decides: the sum has one term there."""
     import pymc as pm
     import pytensor.tensor as pt
 
