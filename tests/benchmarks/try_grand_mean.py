@@ -32,9 +32,7 @@ import warnings
 import numba
 import numpy as np
 import pytensor.tensor as pt
-from pytensor.gradient import DisconnectedType
-from pytensor.graph.basic import Apply
-from pytensor.graph.op import Op
+from cells_op import CellsOp
 from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
 
 NODES = 16
@@ -115,7 +113,7 @@ def gh_cells(eta, sigma, n, k, x, weights_logw):
     return out, d_eta, d_sigma
 
 
-class GHCells(Op):
+class GHCells(CellsOp):
     """The cells' integrated log likelihoods and their two gradients from one call."""
 
     __props__ = ("count",)
@@ -123,26 +121,9 @@ class GHCells(Op):
     def __init__(self, count: int = NODES):
         self.count = int(count)
 
-    def make_node(self, eta, sigma, n, k):
-        eta = pt.as_tensor_variable(eta).astype("float64")
-        sigma = pt.as_tensor_variable(sigma).astype("float64")
-        n = pt.as_tensor_variable(n).astype("float64")
-        k = pt.as_tensor_variable(k).astype("float64")
-        return Apply(self, [eta, sigma, n, k], [eta.type(), eta.type(), eta.type()])
-
-    def perform(self, node, inputs, out):
+    def evaluate(self, eta, sigma, n, k):
         x, logw = gh_rule(self.count)
-        eta, sigma, n, k = inputs
-        for o, v in zip(out, gh_cells(eta, float(sigma), n, k, x, logw), strict=True):
-            o[0] = v
-
-    def grad(self, inputs, grads):
-        _value, d_eta, d_sigma = self(*inputs)
-        g = grads[0]
-        return [g * d_eta, pt.sum(g * d_sigma), DisconnectedType()(), DisconnectedType()()]
-
-    def connection_pattern(self, node):
-        return [[True, False, False], [True, False, False], [False] * 3, [False] * 3]
+        return gh_cells(eta, sigma, n, k, x, logw)
 
 
 @register_funcify_default_op_cache_key(GHCells)
@@ -195,7 +176,6 @@ def _study():
 
 def _model(variant: str, study):
     import pymc as pm
-    import pytensor.tensor as pt
 
     from bayes_rr.families.base import cell_index
 

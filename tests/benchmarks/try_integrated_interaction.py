@@ -21,9 +21,7 @@ import warnings
 import numba
 import numpy as np
 import pytensor.tensor as pt
-from pytensor.gradient import DisconnectedType
-from pytensor.graph.basic import Apply
-from pytensor.graph.op import Op
+from cells_op import CellsOp
 from pytensor.link.numba.dispatch.basic import (
     numba_njit,
     register_funcify_default_op_cache_key,
@@ -132,46 +130,16 @@ def cells(eta, sigma, n, k, half, step, count):
     return lf, de, ds
 
 
-class IntegratedCells(Op):
+class IntegratedCells(CellsOp):
     __props__ = ("half", "step", "count")
+    count_dtype = "int64"
 
     def __init__(self, half, step, count):
         self.half, self.step, self.count = float(half), float(step), int(count)
 
-    def make_node(self, eta, sigma, n, k):
-        eta = pt.as_tensor_variable(eta).astype("float64")
-        sigma = pt.as_tensor_variable(sigma).astype("float64")
-        n = pt.as_tensor_variable(n).astype("int64")
-        k = pt.as_tensor_variable(k).astype("int64")
-        return Apply(self, [eta, sigma, n, k], [eta.type(), eta.type(), eta.type()])
-
-    def perform(self, node, inputs, out):
-        eta, sigma, n, k = inputs
-        r = cells(
-            np.asarray(eta, float),
-            float(sigma),
-            np.asarray(n, np.int64),
-            np.asarray(k, np.int64),
-            self.half,
-            self.step,
-            self.count,
-        )
-        for o, v in zip(out, r, strict=False):
-            o[0] = v
-
-    def grad(self, inputs, grads):
-        _eta, _sigma, _n, _k = inputs
-        _lf, de, ds = self(*inputs)
-        g = grads[0]
-        return [g * de, pt.sum(g * ds), DisconnectedType()(), DisconnectedType()()]
-
-    def connection_pattern(self, node):
-        return [
-            [True, False, False],
-            [True, False, False],
-            [False, False, False],
-            [False, False, False],
-        ]
+    def evaluate(self, eta, sigma, n, k):
+        return cells(np.asarray(eta, float), sigma, np.asarray(n, np.int64),
+                     np.asarray(k, np.int64), self.half, self.step, self.count)  # fmt: skip
 
 
 @register_funcify_default_op_cache_key(IntegratedCells)
