@@ -166,3 +166,18 @@ def test_the_least_recently_used_entries_are_pruned(small_study, cache_dir, monk
     assert not (root / first.key[:2] / first.key).exists()
     assert (root / second.key[:2] / second.key / "meta.json").is_file()
     assert (foreign / "keep.txt").read_text() == "not the cache's"
+
+
+def test_the_key_follows_the_cell_kernel_source(monkeypatch):
+    """The crossed-logit's sampler model calls a numba kernel of this package; a changed
+    kernel is another model to the cache, though the graph around it is the same."""
+    from bayes_rr.families import build_sampling_model, cell_integral
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
+
+    spec = load_spec("crossed-logit")
+    study = simulate_crossed_logit(10, 3, 2, mu=-0.5, sigma_part=1.5, sigma_appraiser=0.5,
+                                   sigma_interaction=0.3, seed=3).study  # fmt: skip
+    key = compile_cache.model_key(build_sampling_model(spec, study))
+    assert compile_cache.model_key(build_sampling_model(spec, study)) == key
+    monkeypatch.setattr(cell_integral, "kernel_digest", lambda: "an older kernel")
+    assert compile_cache.model_key(build_sampling_model(spec, study)) != key

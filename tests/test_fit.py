@@ -223,8 +223,10 @@ def test_summaries_match_those_before_the_speed_work(small_sim, fits):
     that made it the draws are the same and the rows
     agree to about 1e-12; elsewhere the sampler's rounding may differ, so the bounds
     are Monte Carlo errors: 5 standard errors of a mean (sd / sqrt(ESS)) and of a 2.5%
-    or 97.5% quantile (about 2.7 sd / sqrt(ESS)), both fits' errors combined; ESS within
-    a factor of 2; r_hat below the gate's 1.01 in both."""
+    or 97.5% quantile (about 2.7 sd / sqrt(ESS)), both fits' errors combined; ESS at
+    least half the old (the crossed-logit's sampler model of issue 23, grand mean and
+    interaction integrated out, raised it about 3x: more is allowed); r_hat below the
+    gate's 1.01 in both."""
     from pathlib import Path
 
     from bayes_rr.inference.sampling import SamplerSettings
@@ -258,5 +260,5 @@ def test_summaries_match_those_before_the_speed_work(small_sim, fits):
             assert abs(new.mean - old["mean"]) <= 5 * error("ess_bulk"), where
             assert abs(new.lower - old["lower"]) <= 5 * 2.7 * error("ess_tail"), where
             assert abs(new.upper - old["upper"]) <= 5 * 2.7 * error("ess_tail"), where
-            assert 0.5 <= new.ess_bulk / old["ess_bulk"] <= 2, where
+            assert new.ess_bulk / old["ess_bulk"] >= 0.5, where
             assert new.r_hat < 1.01 and old["r_hat"] < 1.01, where

@@ -355,12 +355,12 @@ def test_extreme_statements_are_refused_in_one_line(statement, expected, tmp_pat
 
 
 def test_a_criterion_the_model_lacks_is_refused_before_sampling(demo_csv, tmp_path, monkeypatch):
-    import bayes_rr.workflow.fit as workflow
+    import bayes_rr.inference.sampling as sampling
 
     def no_sampling(*args, **kwargs):
         raise AssertionError("sampled before the criteria were checked")
 
-    monkeypatch.setattr(workflow, "sample_model", no_sampling)
+    monkeypatch.setattr(sampling, "sample_model", no_sampling)
     criteria = write(tmp_path, "c.toml", '[[criterion]]\nkey = "interaction_variance"\n'
                      'scope = "study"\nbelow = 0.1\nrequired_probability = 0.9\n')  # fmt: skip
     out = tmp_path / "fit"
@@ -523,7 +523,7 @@ def test_a_reference_column_latent_class_ignores_is_named(demo_csv):
 
 
 def test_unused_columns_are_said_before_sampling(demo_csv, tmp_path, monkeypatch):
-    import bayes_rr.workflow.fit as workflow
+    import bayes_rr.inference.sampling as sampling
 
     class Stop(Exception):
         pass
@@ -531,7 +531,7 @@ def test_unused_columns_are_said_before_sampling(demo_csv, tmp_path, monkeypatch
     def stop(*args, **kwargs):
         raise Stop
 
-    monkeypatch.setattr(workflow, "sample_model", stop)
+    monkeypatch.setattr(sampling, "sample_model", stop)
     result = runner.invoke(app, ["fit", str(demo_csv), "--model", "latent-class", "--out",
                                  str(tmp_path / "fit"), "--quiet"])  # fmt: skip
     assert isinstance(result.exception, Stop | SystemExit)

@@ -124,9 +124,8 @@ def test_memory_check_follows_the_draws_the_fit_takes(monkeypatch):
         assert stage.draws == fit_module.FIRST_STAGE_DRAWS
         raise _Sampled
 
-    monkeypatch.setattr(fit_module, "sample_model", first_stage_only)
+    monkeypatch.setattr(sampling, "sample_model", first_stage_only)
     monkeypatch.setattr(fit_module, "cached_compiled", lambda *a: None)
-    monkeypatch.setattr(fit_module, "build_model", lambda *a: None, raising=False)
     import bayes_rr.families as families
 
     monkeypatch.setattr(families, "build_model", lambda *a: None)
@@ -135,9 +134,9 @@ def test_memory_check_follows_the_draws_the_fit_takes(monkeypatch):
 
     # the first stage fails the gate: the second is refused before it is sampled
     failed = SimpleNamespace(diagnostics=SimpleNamespace(ok=False, modes=None), timings={})
-    sampled = SimpleNamespace(compiled=None, compile_source="compiled", timings={}, idata=None)
-    monkeypatch.setattr(fit_module, "sample_model", lambda *a, **k: sampled)
-    monkeypatch.setattr(fit_module, "remember_compiled", lambda *a: None)
+    run = SimpleNamespace(compiled=None, compile_source="compiled", timings={}, idata=None)
+    sampled = SimpleNamespace(run=run, integrate=True, retried="", form="", rule_check={})
+    monkeypatch.setattr(fit_module, "sample_study", lambda *a, **k: sampled)
     monkeypatch.setattr(fit_module, "_summarise", lambda *a: failed)
     with pytest.raises(SpecError, match="did not pass the convergence gate, and 4 chains x 2,000"):
         fit_module.fit_study(study, spec, settings, two_stage=True)

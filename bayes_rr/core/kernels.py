@@ -51,6 +51,7 @@ def _compiled():
         _jit(_numba_loops.geyer_ess, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.logistic_moments, fastmath=SUMS_IN_ANY_ORDER),
         _jit(_numba_loops.logistic_plus_normal_cdf, fastmath=SUMS_IN_ANY_ORDER),
+        _jit(_numba_loops.draw_cell_effects),
     )
 
 
@@ -98,6 +99,34 @@ def log_integrated_binomial(
     """
     kernel = _compiled()[1]
     return kernel(_f64(eta), _f64(scale), _f64(n), _f64(k), _f64(nodes), _f64(log_weights))
+
+
+def draw_cell_effects(
+    eta: np.ndarray,
+    scale: np.ndarray,
+    n: np.ndarray,
+    k: np.ndarray,
+    seed: int,
+    attempts: int = 32,
+    step: float = 0.05,
+    half_width: float = 8.5,
+) -> np.ndarray:
+    """Draws of c from p(c | eta, scale, k) proportional to N(c; 0, scale^2)
+    Binomial(k | n, expit(eta + c)), one per (draw, cell).
+
+    Rejection sampling from N(0, scale^2) (exact); a cell that rejects ``attempts``
+    proposals (its calls disagree with its logit) inverts the distribution function of
+    its density on a grid ``step`` apart on [-half_width, half_width] standard units,
+    taken as linear between grid points. Each (draw, cell) has a random stream of its
+    own from ``seed`` (counter-based), so the draws do not depend on the threads.
+
+    ``eta`` (S, cell), ``scale`` (S,), ``n`` and ``k`` (cell,).
+    """
+    count = round(2 * half_width / step) + 1
+    u = np.linspace(-half_width, half_width, count)
+    kernel = _compiled()[6]
+    z = kernel(_f64(eta), _f64(scale), _f64(n), _f64(k), u, int(seed) % 2**63, int(attempts))
+    return z * np.asarray(scale, dtype=float)[:, None]
 
 
 def _argsort_rows(rows: np.ndarray) -> np.ndarray:

@@ -102,6 +102,24 @@ def logistic_plus_normal_cdf(x, a, b, u, w_u, v, w_v):
     return out
 
 
+@numba.njit(cache=False, inline="always")
+def _weighted_binomial_term(weight, t, rejects, accepts):
+    # weight p^k (1 - p)^(n - k) and p for p = 1 / (1 + t), 1 - p = t p (whole-number
+    # powers by multiplication); past t = 1e300, p = 1 / t and 1 - p = 1
+    if t > 1e300:
+        p = 1.0 / t
+        q = 1.0
+    else:
+        p = 1.0 / (1.0 + t)
+        q = t * p
+    term = weight
+    for _ in range(rejects):
+        term *= p
+    for _ in range(accepts):
+        term *= q
+    return term, p
+
+
 def log_integrated_binomial(eta, scale, n, k, u, log_w):
     # log sum_l w_l p_l^k (1 - p_l)^(n - k), p_l = expit(x_l), x_l = eta + scale * u_l,
     # without the binomial coefficient. With t_l = exp(-x_l) = exp(-eta) exp(-scale u_l),
@@ -121,19 +139,7 @@ def log_integrated_binomial(eta, scale, n, k, u, log_w):
                 big_e = np.exp(-e)
                 total = 0.0
                 for j in range(u.size):
-                    t = big_e * f[j]
-                    if t > 1e300:
-                        p = 1.0 / t
-                        q = 1.0
-                    else:
-                        p = 1.0 / (1.0 + t)
-                        q = t * p
-                    term = w[j]
-                    for _ in range(rejects):
-                        term *= p
-                    for _ in range(accepts):
-                        term *= q
-                    total += term
+                    total += _weighted_binomial_term(w[j], big_e * f[j], rejects, accepts)[0]
                 if total > SMALLEST_LINEAR_SUM and total < np.inf:
                     out[s, c] = np.log(total)
                     continue
@@ -324,3 +330,152 @@ def geyer_ess(columns, max_lag):
                 has_nan = True
         ess[q] = np.nan if has_nan else total_draws / tau
     return ess, unfinished
+
+
+@numba.njit(cache=False)
+def _cell_log_space(eta, sigma, n, k, x, log_w):
+    # One cell of cell_integral_with_gradients in log space, for counts whose direct
+    # sum underflows.
+    count = x.size
+    lp = np.empty(count)
+    slope = np.empty(count)
+    top = -np.inf
+    for j in range(count):
+        t = eta + sigma * x[j]
+        e = math.exp(-abs(t))
+        log_p = min(t, 0.0) - math.log1p(e)
+        p = 1.0 / (1.0 + e) if t >= 0 else e / (1.0 + e)
+        lp[j] = k * log_p + (n - k) * (log_p - t) + log_w[j]
+        slope[j] = k - n * p
+        top = max(top, lp[j])
+    total = g_eta = g_sigma = 0.0
+    for j in range(count):
+        w = math.exp(lp[j] - top)
+        total += w
+        g_eta += w * slope[j]
+        g_sigma += w * slope[j] * x[j]
+    return top + math.log(total), g_eta / total, g_sigma / total
+
+
+def cell_integral_with_gradients(eta, sigma, n, k, x, log_w):
+    # Per cell: log sum_j w_j p_j^k (1 - p_j)^(n - k), p_j = expit(eta + sigma x_j), and
+    # its derivatives in eta and sigma, from one pass over the nodes (the sampler needs
+    # value and gradient together). As in log_integrated_binomial, p = 1 / (1 + t) with
+    # t = exp(-eta) exp(-sigma x_j) and 1 - p = t p: one exp a cell, none a node; whole-
+    # number powers by multiplication; log space where the direct sum underflows.
+    w = np.exp(log_w)
+    factor = np.exp(-sigma * x)
+    size = eta.size
+    out = np.empty(size)
+    d_eta = np.empty(size)
+    d_sigma = np.empty(size)
+    for i in range(size):
+        rejects = int(k[i])
+        accepts = int(n[i]) - rejects
+        total = g_eta = g_sigma = 0.0
+        if abs(eta[i]) <= LINEAR_SUM_LOGIT_LIMIT:
+            big_e = math.exp(-eta[i])
+            for j in range(x.size):
+                like, p = _weighted_binomial_term(w[j], big_e * factor[j], rejects, accepts)
+                slope = rejects - (rejects + accepts) * p
+                total += like
+                g_eta += like * slope
+                g_sigma += like * slope * x[j]
+        if total > SMALLEST_LINEAR_SUM and total < np.inf:
+            out[i] = math.log(total)
+            d_eta[i] = g_eta / total
+            d_sigma[i] = g_sigma / total
+        else:
+            out[i], d_eta[i], d_sigma[i] = _cell_log_space(eta[i], sigma, n[i], k[i], x, log_w)
+    return out, d_eta, d_sigma
+
+
+@numba.njit(cache=False)
+def _invert(f, u, mass, uniform):
+    # the point where the distribution function of the density taken as linear between
+    # grid points reaches ``uniform`` (a quadratic a piece, solved exactly)
+    size = u.size
+    mass[0] = 0.0
+    for j in range(1, size):
+        mass[j] = mass[j - 1] + 0.5 * (f[j - 1] + f[j]) * (u[j] - u[j - 1])
+    target = uniform * mass[size - 1]
+    j = 1
+    while j < size - 1 and mass[j] < target:
+        j += 1
+    h = u[j] - u[j - 1]
+    rest = target - mass[j - 1]
+    f0 = f[j - 1]
+    slope = (f[j] - f0) / h
+    if abs(slope) * rest <= 1e-12 * f0 * f0:
+        step = rest / f0 if f0 > 0 else 0.0
+    else:
+        step = (math.sqrt(max(f0 * f0 + 2.0 * slope * rest, 0.0)) - f0) / slope
+    return u[j - 1] + min(max(step, 0.0), h)
+
+
+GOLDEN_GAMMA = np.uint64(0x9E3779B97F4A7C15)
+
+
+@numba.njit(cache=False)
+def _mix64(z):
+    # splitmix64's output function: a counter-based generator, so that each (draw, cell)
+    # has its own stream whatever thread runs it (the draws do not depend on threads)
+    z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+    z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+    return z ^ (z >> np.uint64(31))
+
+
+@numba.njit(cache=False)
+def _uniform(stream, counter):
+    # in (0, 1): 53 random bits, plus half a step
+    bits = _mix64(stream + GOLDEN_GAMMA * np.uint64(counter)) >> np.uint64(11)
+    return (float(bits) + 0.5) * 1.1102230246251565e-16
+
+
+@numba.njit(cache=False)
+def _log_like(x, rejects, accepts):
+    log_p = min(x, 0.0) - math.log1p(math.exp(-abs(x)))
+    return rejects * log_p + accepts * (log_p - x)
+
+
+def draw_cell_effects(eta, scale, n, k, u, seed, attempts):
+    # One draw u per (draw, cell) from the density proportional to
+    # exp(-u^2 / 2) expit(x)^k (1 - expit(x))^(n - k), x = eta + scale u. Rejection
+    # from the standard normal with the likelihood's maximum (at p = k / n) as bound:
+    # exact, and a cell whose calls agree with its logit accepts within a few tries.
+    # After ``attempts`` rejections the cell's density on the grid u is inverted.
+    draws, cells = eta.shape
+    out = np.empty((draws, cells))
+    size = u.size
+    for s in numba.prange(draws):
+        f = np.empty(size)
+        mass = np.empty(size)
+        for c in range(cells):
+            rejects = int(k[c])
+            accepts = int(n[c]) - rejects
+            total = rejects + accepts
+            top = 0.0
+            if 0 < rejects < total:
+                share = rejects / total
+                top = rejects * math.log(share) + accepts * math.log1p(-share)
+            stream = _mix64(np.uint64(seed) * GOLDEN_GAMMA + np.uint64(s * cells + c))
+            found = False
+            for attempt in range(attempts):
+                first = _uniform(stream, 3 * attempt)
+                second = _uniform(stream, 3 * attempt + 1)
+                z = math.sqrt(-2.0 * math.log(first)) * math.cos(2.0 * math.pi * second)
+                gap = _log_like(eta[s, c] + scale[s] * z, rejects, accepts) - top
+                if math.log(_uniform(stream, 3 * attempt + 2)) <= gap:
+                    out[s, c] = z
+                    found = True
+                    break
+            if not found:
+                for j in range(size):
+                    f[j] = -0.5 * u[j] * u[j] + _log_like(
+                        eta[s, c] + scale[s] * u[j], rejects, accepts
+                    )
+                peak = f.max()
+                for j in range(size):
+                    f[j] = math.exp(f[j] - peak)
+                out[s, c] = _invert(f, u, mass, _uniform(stream, 3 * attempts))
+    return out

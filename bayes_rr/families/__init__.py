@@ -16,6 +16,8 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
+import numpy as np
+
 from bayes_rr.core.errors import SpecError
 from bayes_rr.families import (
     beta_binomial,
@@ -29,6 +31,7 @@ from bayes_rr.families.base import Family
 
 if TYPE_CHECKING:
     import pymc as pm
+    import xarray as xr
 
     from bayes_rr.priors.spec import ModelSpec
     from bayes_rr.study.data import StudyData
@@ -63,6 +66,45 @@ def build_model(spec: ModelSpec, study: StudyData) -> pm.Model:
 
         add_earlier_study(model, spec)
     return model
+
+
+def build_sampling_model(spec: ModelSpec, study: StudyData, integrate: bool = True) -> pm.Model:
+    """The PyMC model the sampler runs for ``spec`` and ``study``: the family's
+    reparameterized model when it has one (``Family.build_sampled``), else ``build``'s.
+    ``integrate=False`` keeps every effect sampled (the refit after a failed rule check).
+    """
+    family = family_of(spec)
+    if family.build_sampled is None:
+        return build_model(spec, study)
+    model = family.build_sampled(spec, study, integrate)
+    if spec.earlier is not None:
+        from bayes_rr.families.pymc_parts import add_earlier_study
+
+        add_earlier_study(model, spec)
+    return model
+
+
+def sampled_form(spec: ModelSpec, study: StudyData, integrate: bool = True) -> str:
+    """In words, how the sampler's model differs from the stated one."""
+    family = family_of(spec)
+    if family.sampled_form is None:
+        return "as stated"
+    return family.sampled_form(spec, study, integrate)
+
+
+COMPLETION_SEED_OFFSET = 7919
+"""Added to the fit's seed for the draws made after sampling (a stream of its own)."""
+
+
+def complete_draws(posterior: xr.Dataset, spec: ModelSpec, study: StudyData,
+                   seed: int) -> tuple[xr.Dataset, dict]:  # fmt: skip
+    """The stated model's draws from the sampler's (``Family.complete``), with the check
+    of any rule that integrated effects out (an empty dict when there was none)."""
+    family = family_of(spec)
+    if family.complete is None:
+        return posterior, {}
+    rng = np.random.default_rng(seed + COMPLETION_SEED_OFFSET)
+    return family.complete(posterior, spec, study, rng)
 
 
 def default_model(study) -> tuple[str, str]:

@@ -137,6 +137,15 @@ class Family:
     assumption (calls independent given a part's class)."""
     simulated: bool = False
     """Whether studies can be simulated from the model (plan, calibrate)."""
+    build_sampled: Callable | None = None
+    """``build_sampled(spec, study, integrate)``: a model with the same posterior that the
+    sampler runs instead of ``build``'s (reparameterized, some effects integrated out);
+    None: the sampler runs ``build``'s."""
+    complete: Callable | None = None
+    """``complete(posterior, spec, study, rng) -> (posterior, rule check)``: the draws of
+    ``build``'s variables from those of ``build_sampled``'s."""
+    sampled_form: Callable | None = None
+    """``sampled_form(spec, study, integrate) -> str``: what ``build_sampled`` samples."""
     simulated_parts: str = "drawn"
     """What a simulated study's parts are and what ``--part-mix`` sets: ``drawn`` (from
     the prior's population; the mix picks borderline parts from a pool), ``reference``

@@ -190,6 +190,79 @@ def sample_model(model, settings: SamplerSettings, compiled=None) -> SampleRun:
     return SampleRun(idata, timings, compiled, compile_source)
 
 
+@dataclass(frozen=True)
+class StudySample:
+    """A sample of the stated model (the sampler's draws completed, see
+    :func:`bayes_rr.families.complete_draws`) and how it was obtained."""
+
+    run: SampleRun
+    integrate: bool
+    """Whether effects were integrated out (False after a failed rule check: the next
+    stage of the same fit samples them too)."""
+    form: str
+    """In words, what the sampler's model sampled."""
+    rule_check: dict
+    """The check of the rule that integrated effects out ({} when none did), and when
+    it failed the check that made the fit run again with them sampled."""
+    settings: SamplerSettings | None = None
+    """The settings of the sample kept (the target acceptance raised after divergences)."""
+    retried: str = ""
+    """Why the sample was drawn again, in words ("" when it was not)."""
+
+
+RETRY_TARGET_ACCEPT = 0.95
+"""A sample with divergent transitions at a lower target acceptance is drawn again at
+this one (smaller steps): a spec may run at 0.8, where a well-conditioned posterior
+mixes about twice as fast a gradient, without accepting divergences."""
+
+
+def sample_study(spec: ModelSpec, study, settings: SamplerSettings, *, integrate: bool = True,
+                 compiled=None, key: str | None = None) -> StudySample:  # fmt: skip
+    """Sample the family's sampler model (``build_sampling_model``) and complete its
+    draws into the stated model's. When a rule that integrated effects out fails its
+    check at the largest scales drawn, the fit runs again with every effect sampled.
+
+    ``compiled`` is a compiled model of the same form to reuse; ``key`` (``design_key``)
+    remembers compiled models within the process (nutpie only).
+    """
+    from bayes_rr.families import build_sampling_model, complete_draws, sampled_form
+
+    model = None
+    if compiled is None and key is not None and settings.sampler == "nutpie":
+        compiled = cached_compiled(_form_key(key, integrate), study.cells["s"].to_numpy())
+    if compiled is None:
+        model = build_sampling_model(spec, study, integrate)
+    run = sample_model(model, settings, compiled)
+    if key is not None and settings.sampler == "nutpie":
+        remember_compiled(_form_key(key, integrate), run.compiled)
+    start = time.perf_counter()
+    posterior, check = complete_draws(run.idata.posterior, spec, study, settings.seed)
+    run.timings["complete_s"] = time.perf_counter() - start
+    if check and not check["ok"] and integrate:
+        again = sample_study(spec, study, settings, integrate=False, key=key)
+        for name, value in run.timings.items():
+            again.run.timings[name] = again.run.timings.get(name, 0.0) + value
+        failed = {**check, "then": "the fit ran again with the effects sampled"}
+        return replace(again, rule_check=failed)
+    divergent = int(run.idata.sample_stats["diverging"].sum())
+    if divergent and settings.target_accept < RETRY_TARGET_ACCEPT:
+        safer = replace(settings, target_accept=RETRY_TARGET_ACCEPT)
+        again = sample_study(spec, study, safer, integrate=integrate, compiled=run.compiled,
+                             key=key)  # fmt: skip
+        for name, value in run.timings.items():
+            again.run.timings[name] = again.run.timings.get(name, 0.0) + value
+        why = (f"{divergent} divergent transitions at target_accept {settings.target_accept}: "
+               f"drawn again at {RETRY_TARGET_ACCEPT}")  # fmt: skip
+        return replace(again, retried=why)
+    idata = run.idata
+    idata.posterior = posterior
+    return StudySample(run, integrate, sampled_form(spec, study, integrate), check, settings)
+
+
+def _form_key(key: str, integrate: bool) -> str:
+    return key if integrate else f"{key}|sampled"
+
+
 # ---------------------------------------------------------------------------
 # compiled models reused within a process
 

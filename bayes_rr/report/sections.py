@@ -33,6 +33,28 @@ def _family_texts(name: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
     return (family.model_notes, family.cautions) if family is not None else ((), ())
 
 
+def _sampling_notes(model: dict) -> list[str]:
+    """How the sampler ran the model, when it differed from the stated form (fit folders
+    written before these keys existed have none)."""
+    form = model.get("sampled_form", "as stated")
+    if form == "as stated":
+        return []
+    notes = [f"Sampled in an equivalent form: {esc(form)}; the stated parameters were "
+             "drawn from it after sampling."]  # fmt: skip
+    check = model.get("integration_rule_check")
+    if check:
+        verdict = "within" if check["ok"] else "beyond"
+        notes.append(
+            f"The integration rule ({check['nodes']} nodes) was checked at the largest "
+            f"interaction scales drawn (up to {check['largest_scale']:.3g}): the study's log "
+            f"likelihood was off by at most {check['largest_study_log_lik_error']:.1e}, "
+            f"{verdict} the tolerance of {check['tolerance']}."
+            + (f" {esc(check['then'])}." if "then" in check else "")
+        )
+    notes.extend(f"Sampled again: {esc(why)}." for why in model.get("sampled_again", []))
+    return [f"<p>{note}</p>" for note in notes]
+
+
 def model_section(inputs: ReportInputs) -> str:
     summary, run = inputs.summary, inputs.run
     model = summary["model"]
@@ -41,6 +63,7 @@ def model_section(inputs: ReportInputs) -> str:
         f"<p>Model <b>{esc(model['name'])}</b> ({esc(model['family'])}): "
         f"{esc(model['description'])}. Parameterization of the group terms: {params}.</p>",
     ]
+    parts.extend(_sampling_notes(model))
     parts.extend(f"<p>{esc(note)}</p>" for note in _family_texts(model["family"])[0])
     identification = (summary.get("wrong_calls") or {}).get("identification")
     if identification:

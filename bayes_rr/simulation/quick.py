@@ -17,10 +17,8 @@ import xarray as xr
 
 from bayes_rr.inference.sampling import (
     SamplerSettings,
-    cached_compiled,
     design_key,
-    remember_compiled,
-    sample_model,
+    sample_study,
 )
 from bayes_rr.priors.spec import ModelSpec
 from bayes_rr.results.estimands import compute_estimands, latent_draws
@@ -114,17 +112,12 @@ def quick_fit(
     estimands (with ``production``, a ProductionMix, the production-scope ones too)."""
     import arviz as az
 
-    from bayes_rr.families import build_model
-
     start = time.perf_counter()
     key = design_key(spec, study)
-    compiled = cached_compiled(key, study.cells["s"].to_numpy())
-    reused = compiled is not None
-    model = None if reused else build_model(spec, study)
-    run = sample_model(model, settings, compiled)
-    if not reused:
-        remember_compiled(key, run.compiled)
-    raw = run.idata.posterior
+    sample = sample_study(spec, study, settings, key=key)
+    # nutpie's compiled model was given (not compiled or loaded) only when reused
+    reused = settings.sampler == "nutpie" and sample.run.compile_source is None
+    raw = sample.run.idata.posterior
     posterior = raw[[v for v in raw.data_vars if not v.endswith("__")]]
     latent = latent_draws(posterior, spec, study, seed=settings.seed)
     if production is not None:

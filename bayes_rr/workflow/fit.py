@@ -27,8 +27,7 @@ from bayes_rr.inference.sampling import (
     check_memory,
     convergence_gate,
     design_key,
-    remember_compiled,
-    sample_model,
+    sample_study,
     separate_modes,
 )
 from bayes_rr.priors.spec import ModelSpec
@@ -148,7 +147,6 @@ def fit_study(
     An interrupt (``KeyboardInterrupt``) at any point stops the fit; a sample that a
     library cut short is never summarised.
     """
-    from bayes_rr.families import build_model
     from bayes_rr.families.pymc_parts import parameterizations
 
     _check_production(production, criteria, spec, study)
@@ -173,22 +171,28 @@ def fit_study(
     if settings.sampler == "nutpie":
         compiled = cached_compiled(key, study.cells["s"].to_numpy())
     reused = compiled is not None
-    model = None if reused else build_model(spec, study)
     timings = {"build_s": time.perf_counter() - t0}
     compile_source = "reused in this process" if reused else None
-    for number, stage in enumerate(stages, 1):
+    integrate = True
+    retries: list[str] = []
+    for number in range(1, len(stages) + 1):
+        stage = stages[number - 1]
         if number > 1:
             check_memory(*size, stage, spec.family, why=_SECOND_STAGE)
-        run = sample_model(model, stage, compiled)
+        sample = sample_study(spec, study, stage, integrate=integrate, compiled=compiled, key=key)
+        run, integrate = sample.run, sample.integrate
+        if sample.retried:
+            retries.append(sample.retried)
+            # the later stage keeps the raised target acceptance
+            stage = sample.settings
+            stages = [replace(s, target_accept=stage.target_accept) for s in stages]
         compiled = run.compiled
         compile_source = compile_source or run.compile_source
-        if not reused and stage.sampler == "nutpie":
-            remember_compiled(key, compiled)
-        for key, value in run.timings.items():
-            timings[key] = timings.get(key, 0.0) + value
+        for key_, value in run.timings.items():
+            timings[key_] = timings.get(key_, 0.0) + value
         summary = _summarise(run.idata, spec, study, stage, prob, interval, production, criteria)
-        for key, value in summary.timings.items():
-            timings[key] = timings.get(key, 0.0) + value
+        for key_, value in summary.timings.items():
+            timings[key_] = timings.get(key_, 0.0) + value
         # The first stage's sample is kept when it passes the gate, or when its chains
         # sit in separate modes (more draws cannot join them); otherwise the same
         # compiled model runs again with the full number of draws.
@@ -231,6 +235,9 @@ def fit_study(
         "spec_sha256": spec.sha256,
         "spec_text": spec.text,
         "parameterizations": parameterizations(spec, study),
+        "sampled_form": sample.form,
+        "integration_rule_check": jsonable(sample.rule_check) or None,
+        "sampled_again": retries,
         "production": None if production is None else jsonable(production.as_dict()),
         "seed": settings.seed,
         "sampler_settings": settings.as_dict(),

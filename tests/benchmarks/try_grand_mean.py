@@ -15,7 +15,9 @@ per gradient (a figure the machine's load does not move), against the package's:
   cell by a fixed Gauss-Hermite rule (no Newton steps; ``accuracy`` bounds its error
   against ``scipy.integrate.quad``), written as a PyTensor graph.
 - ``grand-kernel``: the same rule as a numba kernel behind a PyTensor Op that returns
-  the cells' values and both gradients from one call (one evaluation a gradient).
+  the cells' values and both gradients from one call (one evaluation a gradient); since
+  2026-12-04 the package's own (``bayes_rr.families.cell_integral``), which the
+  crossed-logit's sampler model now uses.
 
     python tests/benchmarks/try_grand_mean.py accuracy
     python tests/benchmarks/try_grand_mean.py sample package grand-kernel --target-accept 0.8
@@ -25,15 +27,11 @@ What it measured is written in DEVELOPERS.md ("Large studies").
 
 from __future__ import annotations
 
-import math
 import time
 import warnings
 
-import numba
 import numpy as np
 import pytensor.tensor as pt
-from cells_op import CellsOp
-from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
 
 NODES = 16
 VARIANTS = ("package", "grand", "grand-gh", "grand-kernel")
@@ -42,8 +40,9 @@ INTERCEPT_MU, INTERCEPT_SIGMA = 0.0, 1.5  # the bundled crossed-logit spec's int
 
 def gh_rule(count: int = NODES) -> tuple[np.ndarray, np.ndarray]:
     """Nodes and log weights for E[f(Z)], Z ~ N(0, 1) (probabilists' Hermite)."""
-    x, w = np.polynomial.hermite_e.hermegauss(count)
-    return x, np.log(w / np.sqrt(2 * np.pi))
+    from bayes_rr.core.cell_rule import gauss_hermite
+
+    return gauss_hermite(count)
 
 
 def integrated_log_lik_numpy(eta, sigma, n, k, count: int = NODES) -> np.ndarray:
@@ -54,87 +53,6 @@ def integrated_log_lik_numpy(eta, sigma, n, k, count: int = NODES) -> np.ndarray
     t = eta[:, None] + sigma * x[None, :]
     terms = k[:, None] * log_expit(t) + (n - k)[:, None] * log_expit(-t) + logw[None, :]
     return logsumexp(terms, axis=1)
-
-
-@numba.njit(cache=False)
-def _gh_cell_log_space(eta, sigma, n, k, x, logw):
-    """One cell in log space (the fallback when the direct sum underflows)."""
-    count = x.size
-    lp = np.empty(count)
-    slope = np.empty(count)
-    top = -np.inf
-    for j in range(count):
-        t = eta + sigma * x[j]
-        e = math.exp(-abs(t))
-        log_sig = min(t, 0.0) - math.log1p(e)
-        sig = 1.0 / (1.0 + e) if t >= 0 else e / (1.0 + e)
-        lp[j] = k * log_sig + (n - k) * (log_sig - t) + logw[j]
-        slope[j] = k - n * sig
-        top = max(top, lp[j])
-    total = g_eta = g_sigma = 0.0
-    for j in range(count):
-        w = math.exp(lp[j] - top)
-        total += w
-        g_eta += w * slope[j]
-        g_sigma += w * slope[j] * x[j]
-    return top + math.log(total), g_eta / total, g_sigma / total
-
-
-@numba.njit(cache=False)
-def gh_cells(eta, sigma, n, k, x, weights_logw):
-    """Per cell: log integral, d/d eta, d/d sigma. Direct sum of w_j p^k (1-p)^(n-k)
-    (one exp a node, whole-number powers); log space where that underflows."""
-    x_nodes, logw = x, weights_logw
-    w_nodes = np.exp(logw)
-    size = eta.size
-    out, d_eta, d_sigma = np.empty(size), np.empty(size), np.empty(size)
-    for i in range(size):
-        ni, ki = int(n[i]), int(k[i])
-        total = g_eta = g_sigma = 0.0
-        for j in range(x_nodes.size):
-            t = eta[i] + sigma * x_nodes[j]
-            p = 1.0 / (1.0 + math.exp(-t))
-            q = 1.0 - p if t < 0 else math.exp(-t) * p  # 1 - p without cancellation
-            like = w_nodes[j]
-            for _ in range(ki):
-                like *= p
-            for _ in range(ni - ki):
-                like *= q
-            slope = ki - ni * p
-            total += like
-            g_eta += like * slope
-            g_sigma += like * slope * x_nodes[j]
-        if total > 1e-250:
-            out[i] = math.log(total)
-            d_eta[i] = g_eta / total
-            d_sigma[i] = g_sigma / total
-        else:
-            out[i], d_eta[i], d_sigma[i] = _gh_cell_log_space(eta[i], sigma, n[i], k[i], x, logw)
-    return out, d_eta, d_sigma
-
-
-class GHCells(CellsOp):
-    """The cells' integrated log likelihoods and their two gradients from one call."""
-
-    __props__ = ("count",)
-
-    def __init__(self, count: int = NODES):
-        self.count = int(count)
-
-    def evaluate(self, eta, sigma, n, k):
-        x, logw = gh_rule(self.count)
-        return gh_cells(eta, sigma, n, k, x, logw)
-
-
-@register_funcify_default_op_cache_key(GHCells)
-def _funcify(op, node=None, **kw):
-    x, logw = gh_rule(op.count)
-
-    @numba_njit
-    def integrated(eta, sigma, n, k):
-        return gh_cells(eta, sigma.item(), n, k, x, logw)
-
-    return integrated
 
 
 def quad_log_lik(eta: float, sigma: float, n: int, k: int) -> float:
@@ -200,8 +118,11 @@ def _model(variant: str, study):
             b_dev = pm.ZeroSumNormal("appraiser_dev", sigma=sa, dims="appraiser")
             eta = grand + a_dev[part] + b_dev[app]
         if variant == "grand-kernel":
-            nn, kk = n.astype(float), k.astype(float)
-            pm.Potential("cells", pt.sum(GHCells()(eta, sc, nn, kk)[0]))
+            from bayes_rr.families.cell_integral import integrated_cells
+
+            pm.Potential(
+                "cells", integrated_cells(eta, sc, n.astype(float), k.astype(float), NODES)
+            )
         elif variant == "grand-gh":
             x, logw = gh_rule()
             t = eta[:, None] + sc * x[None, :]
