@@ -230,33 +230,39 @@ def sample_study(spec: ModelSpec, study, settings: SamplerSettings, *, integrate
     model = None
     if compiled is None and key is not None and settings.sampler == "nutpie":
         compiled = cached_compiled(_form_key(key, integrate), study.cells["s"].to_numpy())
+    start = time.perf_counter()
     if compiled is None:
         model = build_sampling_model(spec, study, integrate)
+    build_s = time.perf_counter() - start
     run = sample_model(model, settings, compiled)
+    run.timings["build_s"] = build_s
     if key is not None and settings.sampler == "nutpie":
         remember_compiled(_form_key(key, integrate), run.compiled)
-    start = time.perf_counter()
-    posterior, check = complete_draws(run.idata.posterior, spec, study, settings.seed)
-    run.timings["complete_s"] = time.perf_counter() - start
-    if check and not check["ok"] and integrate:
-        again = sample_study(spec, study, settings, integrate=False, key=key)
-        for name, value in run.timings.items():
-            again.run.timings[name] = again.run.timings.get(name, 0.0) + value
-        failed = {**check, "then": "the fit ran again with the effects sampled"}
-        return replace(again, rule_check=failed)
     divergent = int(run.idata.sample_stats["diverging"].sum())
     if divergent and settings.target_accept < RETRY_TARGET_ACCEPT:
         safer = replace(settings, target_accept=RETRY_TARGET_ACCEPT)
         again = sample_study(spec, study, safer, integrate=integrate, compiled=run.compiled,
                              key=key)  # fmt: skip
-        for name, value in run.timings.items():
-            again.run.timings[name] = again.run.timings.get(name, 0.0) + value
+        _add_timings(again.run.timings, run.timings)
         why = (f"{divergent} divergent transitions at target_accept {settings.target_accept}: "
                f"drawn again at {RETRY_TARGET_ACCEPT}")  # fmt: skip
         return replace(again, retried=why)
+    start = time.perf_counter()
+    posterior, check = complete_draws(run.idata.posterior, spec, study, settings.seed)
+    run.timings["complete_s"] = time.perf_counter() - start
+    if check and not check["ok"] and integrate:
+        again = sample_study(spec, study, settings, integrate=False, key=key)
+        _add_timings(again.run.timings, run.timings)
+        failed = {**check, "then": "the fit ran again with the effects sampled"}
+        return replace(again, rule_check=failed)
     idata = run.idata
     idata.posterior = posterior
     return StudySample(run, integrate, sampled_form(spec, study, integrate), check, settings)
+
+
+def _add_timings(total: dict, more: dict) -> None:
+    for name, value in more.items():
+        total[name] = total.get(name, 0.0) + value
 
 
 def _form_key(key: str, integrate: bool) -> str:

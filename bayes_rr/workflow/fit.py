@@ -171,7 +171,7 @@ def fit_study(
     if settings.sampler == "nutpie":
         compiled = cached_compiled(key, study.cells["s"].to_numpy())
     reused = compiled is not None
-    timings = {"build_s": time.perf_counter() - t0}
+    timings = {"cache_lookup_s": time.perf_counter() - t0}
     compile_source = "reused in this process" if reused else None
     integrate = True
     retries: list[str] = []
