@@ -33,21 +33,21 @@ def _rule(eta, sigma, n, k, nodes):
     return rule_log_lik(eta, scale, np.asarray(n, float), np.asarray(k, float), nodes)[0]
 
 
-@pytest.mark.parametrize(("nodes", "calls"), [(16, (1, 2, 3)), (24, (4, 5, 6))])
+@pytest.mark.parametrize(("nodes", "calls"), [(24, (1, 2, 3)), (32, (4, 5, 6))])
 def test_rule_matches_quad_within_the_design_limits(nodes, calls):
     etas = np.array([-6.0, -3.0, -1.0, 0.0, 0.5, 2.0, 4.0, 6.0])
     for n in calls:
         assert rule_nodes(np.array([n, 1])) == nodes
-        for sigma in (0.1, 0.5, 1.0):
+        for sigma, bound in ((0.1, 1e-7), (0.5, 1e-7), (1.0, 1e-6), (1.65, 5e-4)):
             for k in range(n + 1):
                 ours = _rule(etas, sigma, np.full(etas.size, n), np.full(etas.size, k), nodes)
                 ref = np.array([_quad_log_lik(e, sigma, n, k) for e in etas])
-                assert np.abs(ours - ref).max() <= 1e-5, (n, k, sigma)
+                assert np.abs(ours - ref).max() <= bound, (n, k, sigma)
 
 
 def test_the_rule_is_not_used_where_it_fails():
     """16 nodes with 6 calls a cell are off by far more (measured 3e-3 at sigma 1),
-    which is why such a design takes 24 nodes; beyond 6 calls the effect is sampled."""
+    which is why such a design takes 32 nodes; beyond 6 calls the effect is sampled."""
     etas = np.linspace(-6, 6, 13)
     worst = 0.0
     for k in range(7):
@@ -55,7 +55,7 @@ def test_the_rule_is_not_used_where_it_fails():
         ref = np.array([_quad_log_lik(e, 1.0, 6, k) for e in etas])
         worst = max(worst, float(np.abs(ours - ref).max()))
     assert worst > 1e-4
-    assert rule_nodes(np.array([2, 6])) == 24
+    assert rule_nodes(np.array([2, 6])) == 32
     assert rule_nodes(np.array([3, 7])) is None
 
 
