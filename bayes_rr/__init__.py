@@ -24,6 +24,12 @@ __version__ = "0.1.0"
 # says nothing about a user's study, and under warnings-as-errors it breaks the
 # import itself, so only that one notice is silenced.
 warnings.filterwarnings("ignore", message=r"\s*ArviZ is undergoing", category=FutureWarning)
+# PyTensor warns once when its C backend finds no BLAS; the sampler runs nutpie's
+# numba code, and the crossed-logit's sampler model brings the C backend in while it
+# is built, so the notice would stand above every fit's output.
+warnings.filterwarnings(
+    "ignore", message=r"PyTensor could not link to a BLAS", category=UserWarning
+)
 
 from bayes_rr.core import DEFAULT_PROB  # noqa: E402 (after the warning filter, on purpose)
 
