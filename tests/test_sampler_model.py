@@ -69,11 +69,13 @@ def test_operation_value_and_gradient(mode):
     from bayes_rr.families.cell_integral import integrated_cells
 
     rng = np.random.default_rng(5)
-    n = rng.integers(1, 4, 40).astype(float)
+    # 1 to 9 calls: the kernel's direct sum (up to 7) and its log-space sum (more)
+    n = rng.integers(1, 10, 40).astype(float)
     k = np.floor(rng.random(40) * (n + 1))
     eta_value = rng.normal(0, 2.5, 40)
     eta_value[0] = -40.0  # the log-space branch: k = n at a very low logit
     k[0] = n[0]
+    eta_value[1], eta_value[2] = 350.0, -350.0  # past the direct sum's logit limit
     eta, sigma = pt.vector("eta"), pt.scalar("sigma")
     total = integrated_cells(eta, sigma, n, k, 16)
     fn = pytensor.function([eta, sigma], [total, *pt.grad(total, [eta, sigma])], mode=mode)
@@ -244,3 +246,116 @@ def test_the_report_says_how_the_model_was_sampled():
     failed = {**check, "ok": False, "then": "the fit ran again with the effects sampled"}
     text = _sampling_notes({"sampled_form": "grand mean", "integration_rule_check": failed})[1]
     assert "beyond the tolerance" in text and "ran again" in text
+
+
+def test_the_integrated_likelihood_is_even_in_the_scale():
+    """Why the scale may be sampled with a sign: the rule's nodes and weights are
+    symmetric, so the value at -sigma equals that at sigma and its sigma-derivative
+    changes sign (checked on the kernel, eta on both sides of 0, 1 to 6 calls)."""
+    from bayes_rr.families.cell_integral import _kernel
+
+    rng = np.random.default_rng(8)
+    n = rng.integers(1, 7, 60).astype(float)
+    k = np.floor(rng.random(60) * (n + 1))
+    eta = rng.normal(0, 3, 60)
+    x, log_w = gauss_hermite(24)
+    plus = _kernel()(eta, 0.9, n, k, x, log_w)
+    minus = _kernel()(eta, -0.9, n, k, x, log_w)
+    np.testing.assert_allclose(minus[0], plus[0], rtol=1e-13, atol=1e-13)
+    np.testing.assert_allclose(minus[1], plus[1], rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(minus[2], -plus[2], rtol=1e-11, atol=1e-12)
+    # and the rule's value against scipy.integrate.quad at a negative scale
+    for i in range(5):
+        ref = _quad_log_lik(eta[i], 0.9, int(n[i]), int(k[i]))
+        assert minus[0][i] == pytest.approx(ref, abs=1e-6)
+
+
+@pytest.mark.parametrize(
+    ("toml_prior", "reference"),
+    [
+        ('{ distribution = "half_normal", sigma = 0.5 }', "halfnorm"),
+        ('{ distribution = "half_student_t", nu = 4, sigma = 0.5 }', "halft"),
+    ],
+)
+def test_the_signed_scale_has_the_stated_prior(small_sim, toml_prior, reference):
+    """|s| of the sampled signed scale has the stated prior: the density of s at +-v,
+    doubled, against scipy.stats (halfnorm; t doubled on the half line)."""
+    import pymc as pm
+    from scipy import stats
+
+    from bayes_rr.families import build_sampling_model
+    from bayes_rr.families.crossed_logit import SIGNED_SCALE, signed_scale_prior
+    from bayes_rr.priors.spec import parse_spec
+
+    text = _spec_text().replace('{ distribution = "half_normal", sigma = 0.5 }', toml_prior)
+    spec = parse_spec(text, "variant")
+    assert signed_scale_prior(spec) is not None
+    model = build_sampling_model(spec, small_sim.study)
+    assert SIGNED_SCALE in {v.name for v in model.free_RVs}
+    assert "sigma_interaction" not in {v.name for v in model.free_RVs}
+    values = np.array([0.05, 0.4, 1.3])
+    for sign in (1.0, -1.0):
+        ours = np.log(2) + pm.logp(model[SIGNED_SCALE], sign * values).eval()
+        if reference == "halfnorm":
+            ref = stats.halfnorm.logpdf(values, scale=0.5)
+        else:
+            ref = np.log(2) + stats.t.logpdf(values, 4, scale=0.5)
+        # PyMC rounds its normalising constant (measured offset 1.9e-9)
+        np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-8)
+
+
+def _spec_text() -> str:
+    from bayes_rr.priors.spec import bundled_models
+
+    return bundled_models()["crossed-logit"].read_text(encoding="utf-8")
+
+
+def test_no_signed_scale_without_a_symmetric_prior_or_with_an_earlier_factor():
+    from dataclasses import replace
+    from types import SimpleNamespace
+
+    from bayes_rr.families.crossed_logit import signed_scale_prior
+    from bayes_rr.priors.spec import load_spec, parse_spec
+
+    text = _spec_text().replace(
+        '{ distribution = "half_normal", sigma = 0.5 }',
+        '{ distribution = "exponential", lam = 2.0 }',
+    )
+    assert signed_scale_prior(parse_spec(text, "variant")) is None
+    spec = load_spec("crossed-logit")
+    assert signed_scale_prior(spec) == "normal"
+    earlier = SimpleNamespace(factors=[SimpleNamespace(parameter="sigma_interaction")])
+    assert signed_scale_prior(replace(spec, earlier=earlier)) is None
+
+
+def test_a_fit_reports_the_scale_and_not_its_signed_draws(small_sim):
+    from bayes_rr.priors.spec import load_spec
+
+    result = _fit(small_sim.study, load_spec("crossed-logit"))
+    posterior = result.idata.posterior
+    assert "sigma_interaction_signed" not in posterior
+    assert float(posterior["sigma_interaction"].min()) >= 0.0
+    assert "sampled with a sign" in result.provenance["sampled_form"]
+    assert result.provenance["integration_rule_check"]["ok"] is True
+
+
+@pytest.mark.parametrize(
+    ("design", "expected"),
+    [
+        ((100, 2, 10), "centered"),  # 100 levels, 20 calls each
+        ((99, 2, 10), "noncentered"),  # one level short
+        ((100, 3, 6), "noncentered"),  # 18 calls a level
+        ((6, 2, 10), "noncentered"),  # few levels: 12 divergences centered (terms.py)
+    ],
+)
+def test_many_informed_levels_are_centered(design, expected):
+    from bayes_rr.families.pymc_parts import resolve_parameterization
+    from bayes_rr.priors.spec import load_spec
+    from bayes_rr.simulation.known_truth import simulate_crossed_logit
+
+    study = simulate_crossed_logit(*design, mu=-0.5, sigma_part=2.0, sigma_appraiser=0.5,
+                                   sigma_interaction=0.3, seed=3).study  # fmt: skip
+    spec = load_spec("crossed-logit")
+    assert resolve_parameterization(spec.term("part"), study) == expected
+    # the appraisers (1,000 calls each, but at most 3 levels) stay noncentered
+    assert resolve_parameterization(spec.term("appraiser"), study) == "noncentered"

@@ -357,34 +357,79 @@ def _cell_log_space(eta, sigma, n, k, x, log_w):
     return top + math.log(total), g_eta / total, g_sigma / total
 
 
+DIRECT_MAX_CALLS = 7
+"""Cells with at most this many calls have their powers taken by three selected
+multiplications (the node loop then has no inner loop and vectorizes); cells with more
+go to the log-space sum."""
+
+
 def cell_integral_with_gradients(eta, sigma, n, k, x, log_w):
     # Per cell: log sum_j w_j p_j^k (1 - p_j)^(n - k), p_j = expit(eta + sigma x_j), and
-    # its derivatives in eta and sigma, from one pass over the nodes (the sampler needs
-    # value and gradient together). As in log_integrated_binomial, p = 1 / (1 + t) with
-    # t = exp(-eta) exp(-sigma x_j) and 1 - p = t p: one exp a cell, none a node; whole-
-    # number powers by multiplication; log space where the direct sum underflows.
-    w = np.exp(log_w)
-    factor = np.exp(-sigma * x)
+    # its derivatives in eta and sigma (the sampler needs value and gradient together).
+    # With c = exp(-|eta|) <= 1 and t_j = c exp(-sigma x_j), r_j = 1 / (1 + t_j): for
+    # eta >= 0, p = r and 1 - p = t r, so the term is w t^(n-k) r^n; for eta < 0 the
+    # nodes are mirrored (the rule is symmetric: x -> -x, same weights) and 1 - p = r,
+    # p = t r, the term w t^k r^n. Either way t stays below exp(sigma |x|) (no overflow
+    # from eta), and nothing is pulled out of the sum. The loop runs over cells inside
+    # a loop over nodes with no branch and no inner loop, so that it vectorizes (compile
+    # it with error_model="numpy": numba's division check would stop that). Cells whose
+    # sum underflows, with more than DIRECT_MAX_CALLS calls or |eta| past the limit are
+    # summed again in log space.
     size = eta.size
+    c = np.empty(size)
+    lead = np.empty(size, dtype=np.int64)
+    calls = np.empty(size, dtype=np.int64)
+    for i in range(size):
+        m = int(n[i])
+        direct = m <= DIRECT_MAX_CALLS and abs(eta[i]) <= LINEAR_SUM_LOGIT_LIMIT
+        c[i] = math.exp(-abs(eta[i])) if direct else 0.0
+        calls[i] = m if direct else 0
+        if not direct:
+            lead[i] = 0
+        elif eta[i] >= 0.0:
+            lead[i] = m - int(k[i])
+        else:
+            lead[i] = int(k[i])
+    s0 = np.zeros(size)
+    s1 = np.zeros(size)
+    s2 = np.zeros(size)
+    s3 = np.zeros(size)
+    for j in range(x.size):
+        h = math.exp(-sigma * x[j])
+        w = math.exp(log_w[j])
+        xj = x[j]
+        for i in range(size):
+            t = c[i] * h
+            r = 1.0 / (1.0 + t)
+            a = lead[i]
+            m = calls[i]
+            t2 = t * t
+            r2 = r * r
+            t_power = (t if a & 1 else 1.0) * (t2 if a & 2 else 1.0) * (t2 * t2 if a & 4 else 1.0)
+            r_power = (r if m & 1 else 1.0) * (r2 if m & 2 else 1.0) * (r2 * r2 if m & 4 else 1.0)
+            like = w * t_power * r_power
+            s0[i] += like
+            s1[i] += like * r
+            s2[i] += like * xj
+            s3[i] += like * r * xj
     out = np.empty(size)
     d_eta = np.empty(size)
     d_sigma = np.empty(size)
     for i in range(size):
-        rejects = int(k[i])
-        accepts = int(n[i]) - rejects
-        total = g_eta = g_sigma = 0.0
-        if abs(eta[i]) <= LINEAR_SUM_LOGIT_LIMIT:
-            big_e = math.exp(-eta[i])
-            for j in range(x.size):
-                like, p = _weighted_binomial_term(w[j], big_e * factor[j], rejects, accepts)
-                slope = rejects - (rejects + accepts) * p
-                total += like
-                g_eta += like * slope
-                g_sigma += like * slope * x[j]
-        if total > SMALLEST_LINEAR_SUM and total < np.inf:
+        total = s0[i]
+        m = calls[i]
+        if m > 0 and total > SMALLEST_LINEAR_SUM and total < np.inf:
+            rejects = int(k[i])
             out[i] = math.log(total)
-            d_eta[i] = g_eta / total
-            d_sigma[i] = g_sigma / total
+            if eta[i] >= 0.0:
+                # slope of a node's log term in eta: k - n p, p = r
+                d_eta[i] = rejects - m * s1[i] / total
+                d_sigma[i] = (rejects * s2[i] - m * s3[i]) / total
+            else:
+                # slope k - n (1 - r), at the mirrored node -x
+                accepts = m - rejects
+                d_eta[i] = m * s1[i] / total - accepts
+                d_sigma[i] = (accepts * s2[i] - m * s3[i]) / total
         else:
             out[i], d_eta[i], d_sigma[i] = _cell_log_space(eta[i], sigma, n[i], k[i], x, log_w)
     return out, d_eta, d_sigma

@@ -14,7 +14,7 @@ from bayes_rr.families.layout import (  # noqa: F401 (re-exported)
     STATUSES,
     coords,
 )
-from bayes_rr.families.terms import AUTO_MIN_LEVELS
+from bayes_rr.families.terms import AUTO_MANY_LEVELS, AUTO_MANY_LEVELS_MIN_CALLS, AUTO_MIN_LEVELS
 
 if TYPE_CHECKING:
     from bayes_rr.priors.spec import ModelSpec, TermSpec
@@ -59,7 +59,9 @@ def resolve_parameterization(term: TermSpec, study: StudyData) -> str:
         return term.parameterization
     calls = calls_per_level(study, term.name)
     informative = calls.min() >= term.auto_min_calls and calls.size >= AUTO_MIN_LEVELS
-    return "centered" if informative else "noncentered"
+    many = (calls.size >= AUTO_MANY_LEVELS
+            and calls.min() >= min(term.auto_min_calls, AUTO_MANY_LEVELS_MIN_CALLS))  # fmt: skip
+    return "centered" if informative or many else "noncentered"
 
 
 def parameterizations(spec: ModelSpec, study: StudyData) -> dict[str, str]:

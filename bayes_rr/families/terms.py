@@ -151,5 +151,18 @@ forms a funnel (measured on the demo study: 3 appraisers with 135 calls each gav
 240 calls each sampled noncentered gave r_hat 1.011 on the intercept and 13
 divergences; centered they pass."""
 
+AUTO_MANY_LEVELS = 100
+AUTO_MANY_LEVELS_MIN_CALLS = 20
+"""A second way to centered under ``auto``: a term with at least ``AUTO_MANY_LEVELS``
+levels is centered once every level has at least ``AUTO_MANY_LEVELS_MIN_CALLS`` calls
+(or the term's own ``auto_min_calls``, if lower). So many levels hold the scale well
+away from 0 (no funnel), and 20 calls pin a level down within about 1/sqrt(20 x 0.2) =
+0.5 logits, against the spread of parts chosen across the limit (about 2). Measured on
+150 parts x 8 appraisers x 3 trials (24 calls a part, target_accept 0.9, two simulated
+studies): the smallest ESS over every estimand and scale rose from 1,410-1,829
+(noncentered parts) to 4,284-4,429 (centered), at the same cost. With few levels the
+same calls are not enough: 6 parts x 2 appraisers x 10 trials (20 calls a part)
+centered gave 12 divergences at 0.9 and 3 at 0.95, noncentered none."""
+
 SAMPLERS = ("nutpie", "pymc")
 SHARING = ("shared", "per_part")
