@@ -188,12 +188,13 @@ def _build(spec: ModelSpec, study: StudyData, means: tuple[str, ...],
     with pm.Model(coords=coords(study)) as model:
         # each scale just before its effect, as stated; the grand mean needs them first
         scales = {}
-        if nodes is not None and signed_scale_prior(spec) is not None:
+        signed_prior = signed_scale_prior(spec) if nodes is not None else None
+        if signed_prior is not None:
             # the integrated likelihood is even in the scale: sampled as a signed value
             # whose absolute value has the stated prior (no log transform, no long tail
             # towards 0 where the data cannot tell the scale from nothing)
-            kind = PYMC_SIGNED[signed_scale_prior(spec)]
-            signed = getattr(pm, kind)(SIGNED_SCALE, **spec.term("interaction").prior.kwargs)
+            distribution = getattr(pm, PYMC_SIGNED[signed_prior])
+            signed = distribution(SIGNED_SCALE, **spec.term("interaction").prior.kwargs)
             scales["interaction"] = pm.Deterministic("sigma_interaction", pt.abs(signed))
         for term in groups if means else ():
             if term.name not in scales:
